@@ -52,3 +52,6 @@ def _main(
 
 
 # --- command registration: one import and one line per command -------------
+from loopcheck import cmd_check  # noqa: E402
+
+app.command("check")(cmd_check.check)

@@ -1,0 +1,54 @@
+"""``loopcheck check``: verdict and margins of one or more case files."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from loopcheck.cli_common import EXIT_UNSTABLE, json_line, load_cases, print_warnings
+
+
+def check(
+    cases: Annotated[
+        list[Path],
+        typer.Argument(help="Case files (TOML), one or more.", show_default=False, metavar="CASE.toml"),
+    ],
+    json_output: Annotated[
+        bool,
+        typer.Option("--json", help="Print one JSON object per case per line (JSON Lines) instead of the summary."),
+    ] = False,
+    fail_on_unstable: Annotated[
+        bool,
+        typer.Option("--fail-on-unstable", help="Exit with code 4 when any case is not stable (marginal counts as not stable)."),
+    ] = False,
+) -> None:
+    """Verdict and margins of each case: resonance and critical frequency,
+    closed-loop eigenvalue verdict, crossovers and phase margins, gain-margin
+    interval, -180 deg crossings, sensitivity peak and the Nyquist check.
+
+    Exit codes: 0 the analysis ran; 2 bad input; 4 with --fail-on-unstable
+    when a case is not stable.
+    """
+    loaded = load_cases(cases)  # every file is checked before any output
+
+    from loopcheck.analysis import analyse
+    from loopcheck.summary import format_summary
+
+    any_unstable = False
+    for i, case in enumerate(loaded):
+        print_warnings(case)
+        result = analyse(case.design)
+        any_unstable |= not result.stable
+        if json_output:
+            record = {"name": case.design.name, "case": case.path}
+            record.update({k: v for k, v in result.to_dict().items() if k != "name"})
+            record["warnings"] = list(case.warnings)
+            typer.echo(json_line(record))
+        else:
+            if i:
+                typer.echo("")
+            typer.echo(format_summary(case, result))
+    if fail_on_unstable and any_unstable:
+        raise typer.Exit(EXIT_UNSTABLE)
