@@ -130,7 +130,7 @@ def _fail(where_: str, key: str, detail: str) -> CaseError:
 
 def _did_you_mean(name: str, allowed: Iterable[str]) -> str:
     allowed = list(allowed)
-    close = difflib.get_close_matches(name, allowed, n=1, cutoff=0.6)
+    close = difflib.get_close_matches(name, allowed, n=1, cutoff=0.5)
     if not close:
         lower = {a.lower(): a for a in allowed}
         if name.lower() in lower:
