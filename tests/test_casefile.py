@@ -358,3 +358,29 @@ def test_helpers_use_the_same_message_form():
     with pytest.raises(CaseError, match='did you mean "Kp"'):
         read_choice({"y": "kp"}, "y", ("Hi", "Kp"), w)
     assert read_int_list({"h": [3, 5]}, "h", w) == (3, 5)
+
+
+def test_docs_example_parses_and_error_examples_match():
+    """The example at the top of docs/case-file.md is a valid case, and the
+    error lines quoted there are what the reader says."""
+    import re
+    from pathlib import Path
+
+    doc = (Path(__file__).resolve().parent.parent / "docs" / "case-file.md").read_text(encoding="utf-8")
+    example = re.search(r"```toml\n(.*?)```", doc, re.DOTALL).group(1)
+    case = case_from_string(example, "doc.toml")
+    assert case.warnings == () and case.design.filter.damping.kind == "series-R"
+    quoted = re.search(r"```\n(error: .*?)```", doc, re.DOTALL).group(1).splitlines()
+    produced = {
+        0: variant(filter__L3='"1 mH"'),
+        2: variant(filter__L2=None),
+        3: variant(filter__C='"10 mH"'),
+        4: variant(filter__L1='"abc"'),
+        5: variant(filter__C='"0 uF"'),
+        6: variant(sampling__delay="1.5"),
+        7: variant(control__feedback='"grid-side"'),
+    }
+    for index, text in produced.items():
+        with pytest.raises(CaseError) as info:
+            case_from_string(text, "cases/x.toml")
+        assert quoted[index] == f"error: {info.value}", index
