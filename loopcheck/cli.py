@@ -55,3 +55,6 @@ def _main(
 from loopcheck import cmd_check  # noqa: E402
 
 app.command("check")(cmd_check.check)
+from loopcheck import cmd_report  # noqa: E402
+
+app.command("report")(cmd_report.report)
