@@ -216,3 +216,47 @@ def test_demo_case_summary_runs():
     result = invoke("check", CASES / "commercial-30kva-weak-grid.toml")
     assert result.exit_code == 0, result.stderr
     assert "BELOW" in result.stdout
+
+
+# --- shared CLI plumbing (loopcheck.cli_common) --------------------------------
+
+
+def test_atomic_path_renames_on_success_and_cleans_up_on_failure(tmp_path):
+    from loopcheck.cli_common import atomic_path, atomic_write_text
+
+    target = tmp_path / "sub" / "out.png"
+    with atomic_path(target) as tmp:
+        assert tmp.endswith(".png") and Path(tmp).parent == target.parent
+        Path(tmp).write_bytes(b"first")
+    assert target.read_bytes() == b"first"
+    with pytest.raises(RuntimeError):
+        with atomic_path(target) as tmp:
+            Path(tmp).write_bytes(b"half")
+            raise RuntimeError("failed half-way")
+    assert target.read_bytes() == b"first"  # the old file is untouched
+    assert sorted(p.name for p in target.parent.iterdir()) == ["out.png"]  # no temporary left
+    atomic_write_text(tmp_path / "a.json", '{"x": 1}\n')
+    assert (tmp_path / "a.json").read_text() == '{"x": 1}\n'
+    import os
+
+    umask = os.umask(0)
+    os.umask(umask)
+    # the same permissions open(path, "w") would give, not mkstemp's 0600
+    assert (tmp_path / "a.json").stat().st_mode & 0o777 == 0o666 & ~umask
+
+
+def test_json_line_is_strict():
+    from loopcheck.cli_common import json_line
+
+    line = json_line({"a": float("nan"), "b": [float("inf"), 1.5], "c": (1, 2), "d": complex(1, -2), "e": np.float64(2.5)})
+    assert strict_json(line) == {"a": None, "b": [None, 1.5], "c": [1, 2], "d": [1.0, -2.0], "e": 2.5}
+
+
+def test_progress_is_silent_off_a_terminal(capsys):
+    from loopcheck.cli_common import progress
+
+    with progress(3, "work") as advance:
+        for _ in range(3):
+            advance(1)
+    captured = capsys.readouterr()
+    assert captured.out == "" and captured.err == ""
