@@ -427,12 +427,12 @@ def build_frequency(ctx: ReportContext) -> Section:
     )
     body += (
         "<p class='read'><strong>Reading it.</strong> With no open-loop poles outside the unit circle "
-        "(P = 0) the familiar rule holds: the loop is stable when no -180 deg crossing lies where "
-        "|L| &gt; 0 dB in net. With P &gt; 0 (the damping loop itself has unstable poles, typical "
-        "when the resonance lies above the critical frequency) stability needs the curve to cross "
-        "-180 deg upwards, where |L| &gt; 0 dB, P/2 times more often than downwards, and a 'phase "
-        "margin' at a single crossover says little on its own; the Nyquist count below and the "
-        "eigenvalue verdict decide.</p>"
+        "(P = 0) the familiar rule holds: the loop is stable when the phase, over the band where "
+        "|L| &gt; 0 dB, crosses -180 deg (and its odd multiples) upwards as often as downwards, "
+        "usually not at all. With P &gt; 0 (the damping loop itself has unstable poles, typical when "
+        "the resonance lies above the critical frequency) it must cross upwards P/2 times more often "
+        "than downwards, and a phase margin at a single crossover says little on its own. The "
+        "Nyquist count below and the eigenvalue verdict decide.</p>"
     )
     body += figure_html(
         nyq_png,
