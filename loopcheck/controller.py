@@ -173,6 +173,27 @@ def controller_blocks(control, f1_hz, Ts, Kp=None, Ki=None, Kr=None) -> list[Dis
     return blocks
 
 
+def solve_at_points(A: np.ndarray, B: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """(z_i I - A)^-1 B for every point z_i (unbatched A [n, n], B [n, 1]).
+
+    Returns [len(z), n, 1]; a point that hits an eigenvalue of A exactly
+    (an integrator at z = 1, an ideal resonator at its frequency) gives inf
+    instead of raising."""
+    n = A.shape[-1]
+    M = z[:, None, None] * np.eye(n) - A
+    Bb = np.broadcast_to(B, (z.size, n, 1))
+    try:
+        return np.linalg.solve(M, Bb)
+    except np.linalg.LinAlgError:
+        out = np.empty((z.size, n, 1), dtype=complex)
+        for i in range(z.size):
+            try:
+                out[i] = np.linalg.solve(M[i], Bb[i])
+            except np.linalg.LinAlgError:
+                out[i] = np.inf
+        return out
+
+
 def block_response(block: DiscreteSS, z: np.ndarray) -> np.ndarray:
     """Frequency response C (zI - A)^-1 B + D at the points z (1-D complex),
     for an unbatched block. Returns shape z.shape."""
@@ -180,8 +201,7 @@ def block_response(block: DiscreteSS, z: np.ndarray) -> np.ndarray:
     D = complex(block.D[..., 0, 0])
     if m == 0:
         return np.full(z.shape, D, dtype=complex)
-    M = z[:, None, None] * np.eye(m) - block.A
-    x = np.linalg.solve(M, np.broadcast_to(block.B, (z.size, m, 1)))
+    x = solve_at_points(block.A, block.B, z)
     return (block.C @ x)[:, 0, 0] + D
 
 

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .controller import DiscreteSS, controller_blocks, controller_response, parallel
+from .controller import DiscreteSS, controller_blocks, controller_response, parallel, solve_at_points
 from .discretize import DiscretePlant, discretize_plant
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, design_plant
 
@@ -53,9 +53,7 @@ class Loop:
 
     def plant_response(self, z: np.ndarray) -> np.ndarray:
         """P(z) = i_fb/uc with the damping loop closed, at the points z."""
-        n = self.inner_A.shape[-1]
-        M = z[:, None, None] * np.eye(n) - self.inner_A
-        x = np.linalg.solve(M, np.broadcast_to(self.plant_B, (z.size, n, 1)))
+        x = solve_at_points(self.inner_A, self.plant_B, z)
         return (self.fb_C @ x)[:, 0, 0]
 
     def loop_response(self, z: np.ndarray) -> np.ndarray:
