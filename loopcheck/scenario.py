@@ -1,0 +1,355 @@
+"""The ``[scenario]`` table of a case file: what ``loopcheck simulate`` runs.
+
+Every key is optional; a case without ``[scenario]`` simulates the design in
+its periodic steady state for 60 ms with a resonance burst at 20 ms.
+
+Keys of ``[scenario]``
+----------------------
+``duration``            simulated time, e.g. ``"60 ms"`` (default 60 ms)
+``points_per_sample``   output points per sampling period, whole number
+                        1..200 (default 20)
+``start``               ``"steady"`` (default): the periodic steady state of
+                        the loop under the grid voltage and the reference;
+                        ``"rest"``: every state zero at t = 0
+``grid_peak``           peak of the fundamental grid phase voltage, e.g.
+                        ``"325 V"``; default sqrt(2/3) times ``[grid] V``
+                        (line-to-line rms of a three-phase grid), 0 V when
+                        ``V`` is not given
+``grid_phase_deg``      phase of the grid voltage at t = 0 [deg] (default 0)
+``grid_harmonics``      list of inline tables ``{order = 5, share = "3 %",
+                        phase_deg = 0}``: a grid-voltage harmonic of that
+                        order with that share of ``grid_peak``
+``reference_peak``      peak of the sinusoidal current reference, e.g.
+                        ``"20 A"``; default the rated peak current
+                        sqrt(2) * S / (sqrt(3) * V) from ``[grid]``, 0 A
+                        when S or V is missing
+``reference_phase_deg`` reference phase relative to the grid voltage [deg]
+                        (default 0: in phase, unity power factor)
+``trip_current``        the simulation stops when any current exceeds this
+                        peak (the protection would trip), e.g. ``"200 A"``;
+                        default 5 times the largest reference peak, at
+                        least 10 A
+
+Events: ``[[scenario.events]]``, each with ``at`` (a time, rounded to the
+nearest sampling instant) and ``kind``:
+
+``"reference-step"``        ``peak`` (current) and/or ``phase_deg``: the
+                            reference changes to these values
+``"grid-voltage-step"``     ``peak`` (voltage): new fundamental peak of
+                            the grid voltage (harmonics unchanged)
+``"grid-phase-jump"``       ``by_deg``: the grid voltage jumps by this angle
+                            (each harmonic by order times the angle)
+``"grid-inductance-step"``  ``Lg`` (inductance): the grid inductance changes;
+                            every current and voltage of the filter is kept
+                            (the grid-side current stays continuous)
+``"resonance-burst"``       ``peak`` (voltage; default 5 % of the grid
+                            peak, 10 V without grid voltage), ``cycles``
+                            (whole number, default 3), ``frequency`` (default the LCL
+                            resonance with the grid inductance of that
+                            moment): a sinusoidal burst added to the
+                            converter voltage, starting at ``at`` and
+                            ending at the sampling instant nearest to
+                            ``cycles`` periods later
+``"voltage-pulse"``         ``peak`` (voltage, default as for the burst), ``width`` (time, default one
+                            sampling period, rounded to whole periods): a
+                            rectangular pulse added to the converter voltage
+
+The same events can be given on the command line as
+``--event "resonance-burst at=20ms peak=15V"`` (key=value words, no blanks
+inside a value).
+
+Pure parsing into frozen dataclasses, SI units inside; bad input raises
+:class:`loopcheck.casefile.CaseError` with a one-line message naming the file,
+the table and the key. Nothing here imports numpy.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+
+from loopcheck.casefile import CaseError, check_keys, read_choice, read_quantity
+
+EVENT_KINDS = (
+    "reference-step",
+    "grid-voltage-step",
+    "grid-phase-jump",
+    "grid-inductance-step",
+    "resonance-burst",
+    "voltage-pulse",
+)
+#: Events that add a voltage to the converter output (used to excite the resonance).
+INJECTION_KINDS = ("resonance-burst", "voltage-pulse")
+
+SCENARIO_KEYS = (
+    "duration",
+    "points_per_sample",
+    "start",
+    "grid_peak",
+    "grid_phase_deg",
+    "grid_harmonics",
+    "reference_peak",
+    "reference_phase_deg",
+    "trip_current",
+    "events",
+)
+
+_EVENT_KEYS = {
+    "reference-step": ("peak", "phase_deg"),
+    "grid-voltage-step": ("peak",),
+    "grid-phase-jump": ("by_deg",),
+    "grid-inductance-step": ("Lg",),
+    "resonance-burst": ("peak", "cycles", "frequency"),
+    "voltage-pulse": ("peak", "width"),
+}
+
+DEFAULT_DURATION_S = 0.06
+DEFAULT_POINTS = 20
+DEFAULT_BURST_AT_S = 0.02
+
+
+@dataclass(frozen=True)
+class GridHarmonic:
+    """A grid-voltage harmonic: ``order`` (whole number >= 2), ``share`` of
+    the fundamental peak [-] and ``phase_deg`` at t = 0 [deg]."""
+
+    order: int
+    share: float
+    phase_deg: float = 0.0
+
+
+@dataclass(frozen=True)
+class Event:
+    """A scenario event at ``time_s`` [s] (rounded to a sampling instant by
+    the simulator).
+
+    kind: one of :data:`EVENT_KINDS`. Fields used by each kind:
+    reference-step: ``peak_A`` [A] and/or ``phase_deg`` [deg] (None = keep);
+    grid-voltage-step: ``peak_V`` [V]; grid-phase-jump: ``angle_deg`` [deg];
+    grid-inductance-step: ``Lg_H`` [H]; resonance-burst: ``peak_V`` [V],
+    ``cycles`` [-], ``frequency_hz`` [Hz] (None = the LCL resonance);
+    voltage-pulse: ``peak_V`` [V], ``width_s`` [s] (None = one period)."""
+
+    time_s: float
+    kind: str
+    peak_A: float | None = None
+    peak_V: float | None = None
+    phase_deg: float | None = None
+    angle_deg: float | None = None
+    Lg_H: float | None = None
+    cycles: int = 3
+    frequency_hz: float | None = None
+    width_s: float | None = None
+
+    def describe(self) -> str:
+        """Short text for figures and printouts, e.g. ``"Lg -> 3 mH"``."""
+        k = self.kind
+        if k == "reference-step":
+            parts = []
+            if self.peak_A is not None:
+                parts.append(f"{self.peak_A:.4g} A")
+            if self.phase_deg is not None:
+                parts.append(f"{self.phase_deg:.4g} deg")
+            return "reference -> " + ", ".join(parts)
+        if k == "grid-voltage-step":
+            return f"grid voltage -> {self.peak_V:.4g} V peak"
+        if k == "grid-phase-jump":
+            return f"grid phase jump {self.angle_deg:+.4g} deg"
+        if k == "grid-inductance-step":
+            return f"Lg -> {self.Lg_H * 1e3:.4g} mH"
+        if k == "resonance-burst":
+            f = "resonance" if self.frequency_hz is None else f"{self.frequency_hz:.5g} Hz"
+            return f"burst {self.peak_V:.4g} V at {f}, {self.cycles} cycles"
+        return f"voltage pulse {self.peak_V:.4g} V"
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """What to simulate (SI units; None means "derive from the design").
+
+    duration_s [s]; points_per_sample: output points per sampling period;
+    start: "steady" or "rest"; grid_peak_V [V] (fundamental phase-voltage
+    peak); grid_phase_deg [deg]; grid_harmonics; reference_peak_A [A];
+    reference_phase_deg [deg] (relative to the grid voltage); trip_current_A
+    [A] (None = automatic, inf = never); events (sorted by time)."""
+
+    duration_s: float = DEFAULT_DURATION_S
+    points_per_sample: int = DEFAULT_POINTS
+    start: str = "steady"
+    grid_peak_V: float | None = None
+    grid_phase_deg: float = 0.0
+    grid_harmonics: tuple[GridHarmonic, ...] = ()
+    reference_peak_A: float | None = None
+    reference_phase_deg: float = 0.0
+    trip_current_A: float | None = None
+    events: tuple[Event, ...] = field(default_factory=tuple)
+
+    @property
+    def injections(self) -> tuple[Event, ...]:
+        """The events that add a voltage to the converter output."""
+        return tuple(e for e in self.events if e.kind in INJECTION_KINDS)
+
+
+def default_scenario() -> Scenario:
+    """Steady state for 60 ms with a 3-cycle resonance burst at 20 ms whose
+    peak is chosen by the simulator (5 % of the grid peak, 10 V without
+    grid voltage)."""
+    return Scenario(events=(Event(DEFAULT_BURST_AT_S, "resonance-burst"),))
+
+
+def _angle(t: dict, key: str, w: str, default=None):
+    if key not in t:
+        return default
+    v = t[key]
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)):
+        raise CaseError(f"{w} {key}: expected an angle in degrees as a plain number (e.g. 30), got {_show(v)}")
+    return float(v)
+
+
+def _whole(t: dict, key: str, w: str, default: int, lo: int, hi: int) -> int:
+    if key not in t:
+        return default
+    v = t[key]
+    if isinstance(v, str) and re.fullmatch(r"\s*\d+\s*", v):
+        v = int(v)
+    if isinstance(v, bool) or not isinstance(v, int) or not lo <= v <= hi:
+        raise CaseError(f"{w} {key}: expected a whole number from {lo} to {hi}, got {_show(v)}")
+    return v
+
+
+def _show(v) -> str:
+    from loopcheck.units import shown
+
+    return shown(v)
+
+
+def parse_event(t: dict, w: str) -> Event:
+    """One event table (``[[scenario.events]]`` entry or a ``--event``
+    option turned into a dict) -> :class:`Event`. ``w`` prefixes messages."""
+    if not isinstance(t, dict):
+        raise CaseError(f"{w}: expected a table with at and kind, got {_show(t)}")
+    kind = read_choice(t, "kind", EVENT_KINDS, w)
+    check_keys(t, ("at", "kind") + _EVENT_KEYS[kind], w)
+    at = read_quantity(t, "at", "time", w, nonnegative=True)
+    if kind == "reference-step":
+        peak = read_quantity(t, "peak", "current", w, None, nonnegative=True)
+        ph = _angle(t, "phase_deg", w)
+        if peak is None and ph is None:
+            raise CaseError(f"{w} peak: a reference-step needs peak (e.g. \"30 A\") and/or phase_deg")
+        return Event(at, kind, peak_A=peak, phase_deg=ph)
+    if kind == "grid-voltage-step":
+        return Event(at, kind, peak_V=read_quantity(t, "peak", "voltage", w, nonnegative=True))
+    if kind == "grid-phase-jump":
+        ang = _angle(t, "by_deg", w)
+        if ang is None:
+            raise CaseError(f"{w} by_deg: missing; expected the jump angle in degrees (e.g. 20)")
+        return Event(at, kind, angle_deg=ang)
+    if kind == "grid-inductance-step":
+        return Event(at, kind, Lg_H=read_quantity(t, "Lg", "inductance", w, nonnegative=True))
+    if kind == "resonance-burst":
+        return Event(
+            at,
+            kind,
+            peak_V=read_quantity(t, "peak", "voltage", w, None, positive=True),
+            cycles=_whole(t, "cycles", w, 3, 1, 1000),
+            frequency_hz=read_quantity(t, "frequency", "frequency", w, None, positive=True),
+        )
+    return Event(
+        at,
+        kind,
+        peak_V=read_quantity(t, "peak", "voltage", w, None),
+        width_s=read_quantity(t, "width", "time", w, None, positive=True),
+    )
+
+
+def parse_event_option(text: str, label: str = "--event") -> Event:
+    """Parse a command-line event such as ``"resonance-burst at=20ms peak=15V"``
+    (the kind first, then key=value words)."""
+    words = text.split()
+    if not words:
+        raise CaseError(f'{label}: empty; expected e.g. "resonance-burst at=20ms peak=15V"')
+    t: dict = {"kind": words[0]}
+    for word in words[1:]:
+        if "=" not in word:
+            raise CaseError(f'{label} "{text}": expected key=value words after the kind, got "{word}"')
+        k, v = word.split("=", 1)
+        t[k] = _number_or_text(v)
+    return parse_event(t, f"{label} \"{text}\":")
+
+
+def _number_or_text(v: str):
+    try:
+        return int(v)
+    except ValueError:
+        pass
+    try:
+        return float(v)
+    except ValueError:
+        return v
+
+
+def parse_scenario(table: dict | None, where: str = "<scenario>:", extra_events=()) -> Scenario:
+    """Read a raw ``[scenario]`` table (as tomllib returned it; None or {}
+    gives the default scenario) and append ``extra_events`` (from options).
+
+    ``where`` prefixes messages, e.g. ``"cases/x.toml: [scenario]"``."""
+    if not table:
+        base = default_scenario() if not extra_events else Scenario()
+        return _with_events(base, tuple(extra_events))
+    w = where
+    check_keys(table, SCENARIO_KEYS, w)
+    duration = read_quantity(table, "duration", "time", w, DEFAULT_DURATION_S, positive=True)
+    if duration > 10.0:
+        raise CaseError(f"{w} duration: at most 10 s can be simulated, got {_show(table['duration'])}")
+    points = _whole(table, "points_per_sample", w, DEFAULT_POINTS, 1, 200)
+    start = read_choice(table, "start", ("steady", "rest"), w, "steady")
+    grid_peak = read_quantity(table, "grid_peak", "voltage", w, None, nonnegative=True)
+    grid_phase = _angle(table, "grid_phase_deg", w, 0.0)
+    harmonics = []
+    raw = table.get("grid_harmonics", [])
+    if not isinstance(raw, list):
+        raise CaseError(f"{w} grid_harmonics: expected a list of tables such as [{{order = 5, share = \"3 %\"}}], got {_show(raw)}")
+    for i, h in enumerate(raw, 1):
+        wh = f"{w} grid_harmonics[{i}]"
+        if not isinstance(h, dict):
+            raise CaseError(f"{wh}: expected a table such as {{order = 5, share = \"3 %\"}}, got {_show(h)}")
+        check_keys(h, ("order", "share", "phase_deg"), wh)
+        if "order" not in h:
+            raise CaseError(f"{wh} order: missing; expected a whole number >= 2")
+        order = _whole(h, "order", wh, 0, 2, 1000)
+        share = read_quantity(h, "share", "percent", wh, nonnegative=True)
+        harmonics.append(GridHarmonic(order, share, _angle(h, "phase_deg", wh, 0.0)))
+    ref_peak = read_quantity(table, "reference_peak", "current", w, None, nonnegative=True)
+    ref_phase = _angle(table, "reference_phase_deg", w, 0.0)
+    trip = read_quantity(table, "trip_current", "current", w, None, positive=True)
+    events = []
+    raw_events = table.get("events", [])
+    if not isinstance(raw_events, list):
+        raise CaseError(f"{w} events: expected [[scenario.events]] tables, got {_show(raw_events)}")
+    for i, e in enumerate(raw_events, 1):
+        we = f"{w} events[{i}]"
+        ev = parse_event(e, we)
+        if ev.time_s >= duration:
+            raise CaseError(f"{we} at: {ev.time_s:g} s is not before the end of the simulation ({duration:g} s)")
+        events.append(ev)
+    sc = Scenario(
+        duration_s=duration,
+        points_per_sample=points,
+        start=start,
+        grid_peak_V=grid_peak,
+        grid_phase_deg=grid_phase,
+        grid_harmonics=tuple(harmonics),
+        reference_peak_A=ref_peak,
+        reference_phase_deg=ref_phase,
+        trip_current_A=trip,
+        events=tuple(events),
+    )
+    return _with_events(sc, tuple(extra_events))
+
+
+def _with_events(sc: Scenario, extra: tuple) -> Scenario:
+    from dataclasses import replace
+
+    events = tuple(sorted(sc.events + extra, key=lambda e: e.time_s))
+    return replace(sc, events=events)
