@@ -1,0 +1,103 @@
+"""``loopcheck export``: the controller as the firmware runs it."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from loopcheck.cli_common import (
+    EXIT_UNSTABLE,
+    atomic_write_text,
+    fail,
+    json_line,
+    load_case,
+    print_warnings,
+    to_jsonable,
+    warn,
+)
+
+
+def export(
+    case: Annotated[Path, typer.Argument(help="Case file (TOML).", show_default=False, metavar="CASE.toml")],
+    out_dir: Annotated[
+        Optional[Path],
+        typer.Option("-o", "--out-dir", help="Write <case>_controller.h and <case>_controller.json into this directory."),
+    ] = None,
+    header: Annotated[Optional[Path], typer.Option("--header", help="Write the C header to this path.")] = None,
+    json_out: Annotated[Optional[Path], typer.Option("--json-out", help="Write the JSON export to this path.")] = None,
+    json_output: Annotated[
+        bool, typer.Option("--json", help="Print the JSON export on stdout instead of the summary.")
+    ] = False,
+    fail_on_unstable: Annotated[
+        bool,
+        typer.Option(
+            "--fail-on-unstable",
+            help="Exit with code 4 when the loop with the stored (quantised) coefficients is not stable.",
+        ),
+    ] = False,
+) -> None:
+    """The discrete current controller as difference equations (direct form I
+    sections, integrator, damping gain) in the case's sampling period, in
+    V/A and, with a [firmware] table, in firmware units with quantised
+    coefficients; stability and margins re-checked with the stored
+    coefficients. Output: a summary (or --json) on stdout, and with -o or
+    --header/--json-out a C99 header of constants and a JSON file.
+
+    Exit codes: 0 done; 2 bad input; 4 with --fail-on-unstable when the
+    stored coefficients give a loop that is not stable.
+    """
+    if out_dir is not None and (header is not None or json_out is not None):
+        fail("give either -o/--out-dir or --header/--json-out, not both")
+    loaded = load_case(case)
+    print_warnings(loaded)
+
+    from loopcheck.casefile import CaseError
+    from loopcheck.export_c import export_json, render_header, render_summary
+    from loopcheck.firmware import FirmwareFormatError, FirmwareSettings, export_controller, read_firmware_settings
+
+    where = loaded.where("firmware")
+    settings = FirmwareSettings()
+    if "firmware" in loaded.tables:
+        try:
+            settings, notes = read_firmware_settings(loaded.tables["firmware"], where)
+        except CaseError as exc:
+            fail(str(exc))
+        for n in notes:
+            warn(n)
+    try:
+        ex = export_controller(loaded.design, settings)
+    except FirmwareFormatError as exc:
+        fail(f"{where} {exc.key}: {exc}")
+
+    if out_dir is not None:
+        stem = Path(loaded.path).stem
+        header = out_dir / f"{stem}_controller.h"
+        json_out = out_dir / f"{stem}_controller.json"
+    files = {}
+    if header is not None:
+        files["C header"] = os.fspath(header)
+    if json_out is not None:
+        files["JSON"] = os.fspath(json_out)
+    doc = export_json(ex, loaded.path, files)
+    try:
+        if header is not None:
+            atomic_write_text(header, render_header(ex, loaded.path))
+        if json_out is not None:
+            import json
+
+            atomic_write_text(json_out, json.dumps(to_jsonable(doc), indent=2, allow_nan=False, ensure_ascii=False) + "\n")
+    except OSError as exc:
+        fail(f"cannot write the output: {exc.strerror or exc} ({exc.filename or ''})")
+    if json_output:
+        typer.echo(json_line(doc))
+    else:
+        typer.echo(render_summary(ex, loaded.path, files))
+    final = ex.recheck.after if ex.recheck.after is not None else ex.recheck.before
+    if json_output:  # the summary already lists them
+        for w in ex.recheck.warnings:
+            warn(w)
+    if fail_on_unstable and not final.stable:
+        raise typer.Exit(EXIT_UNSTABLE)
