@@ -58,3 +58,6 @@ app.command("check")(cmd_check.check)
 from loopcheck import cmd_report  # noqa: E402
 
 app.command("report")(cmd_report.report)
+from loopcheck import cmd_export  # noqa: E402
+
+app.command("export")(cmd_export.export)
