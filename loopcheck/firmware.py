@@ -819,10 +819,17 @@ def recheck(design: Design, stored: ControllerCoefficients, q: QuantisedControll
             )
     for name, v in q.values():
         if v.ideal != 0.0 and v.value == 0.0:
-            warnings.append(f"{name} = {v.ideal:.6g} {'' if '.a' in name else q.gain_unit} rounds to zero in {fmt}".replace("  ", " "))
-        elif (name in ("Kp", "Hi") or ".b" in name) and abs(v.relative_error) > GAIN_ERROR_LIMIT:
+            unit = "" if ".a" in name else f" {q.gain_unit}"
+            warnings.append(f"{name} = {v.ideal:.6g}{unit} rounds to zero in {fmt}")
+    for name, v in (("Kp", q.Kp), ("Hi", q.Hi)):
+        if v.value != 0.0 and abs(v.relative_error) > GAIN_ERROR_LIMIT:
+            warnings.append(f"{name} changes by {100 * v.relative_error:+.2f} % in {fmt} ({v.ideal:.6g} -> {v.value:.6g} {q.gain_unit})")
+    for qs in q.sections:
+        worst = max((v for v in qs.b if v.value != 0.0), key=lambda v: abs(v.relative_error), default=None)
+        if worst is not None and abs(worst.relative_error) > GAIN_ERROR_LIMIT:
             warnings.append(
-                f"{name} changes by {100 * v.relative_error:+.2f} % in {fmt} ({v.ideal:.6g} -> {v.value:.6g} {q.gain_unit})"
+                f"section {qs.name}: its numerator changes by up to {100 * worst.relative_error:+.2f} % in {fmt} "
+                f"(the section's gain moves by about as much)"
             )
     return Recheck(before, after, tuple(poles), peak_shift_limit, tuple(warnings))
 

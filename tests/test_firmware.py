@@ -400,14 +400,8 @@ def test_q2_29_changes_nothing_that_matters():
         {},
         {"wc": 5.0, "Kr": 20.0, "resonator": "zoh"},
         {"delay": 0.5, "Hi": 6.0},
-        pytest.param(
-            {"kind": "PI", "Ki": 2000.0},
-            marks=pytest.mark.xfail(
-                raises=np.linalg.LinAlgError,
-                reason="engine analyse() evaluates the loop exactly at the integrator pole z = 1 "
-                "(singular solve); remove this mark when the engine handles it",
-            ),
-        ),
+        {"kind": "PI", "Ki": 2000.0},
+        {"kind": "PI", "Ki": 2000.0, "integrator": "tustin", "Hi": 8.0},
     ],
 )
 def test_exact_figures_agree_with_the_engine_analysis(kw):
