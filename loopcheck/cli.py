@@ -61,3 +61,9 @@ app.command("report")(cmd_report.report)
 from loopcheck import cmd_export  # noqa: E402
 
 app.command("export")(cmd_export.export)
+from loopcheck import cmd_simulate  # noqa: E402
+
+app.command("simulate")(cmd_simulate.simulate)
+from loopcheck import cmd_harmonics  # noqa: E402
+
+app.command("harmonics")(cmd_harmonics.harmonics)

@@ -1,0 +1,142 @@
+"""``loopcheck harmonics``: switching sidebands of the grid current against
+the IEEE 519 / IEEE 1547 limits, and passive versus active damping in watts."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from loopcheck.cli_common import atomic_path, fail, json_line, load_case, print_warnings, warn
+
+CAUTION = (
+    "Design aid, not a compliance test: the limits apply at the point of common coupling and are "
+    "verified by measurement; local codes and the utility's interconnection rules govern."
+)
+
+
+def harmonics(
+    case: Annotated[Path, typer.Argument(help="Case file (TOML) with a [pwm] table.", show_default=False,
+                                         metavar="CASE.toml")],
+    output: Annotated[
+        Optional[Path],
+        typer.Option("--output", "-o", help="Write the sideband figure (PNG, SVG or PDF by suffix).", show_default=False),
+    ] = None,
+    top: Annotated[int, typer.Option("--top", min=1, max=200, help="Number of largest sidebands listed.")] = 8,
+    json_output: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of the text summary.")] = False,
+) -> None:
+    """Grid-current sidebands around the switching frequency and its
+    multiples (PWM Bessel expressions through the LCL filter) against the
+    current-distortion limits of IEEE Std 519-2014 and IEEE Std 1547-2018,
+    at the nominal grid inductance and over the Lg range; and the loss of
+    a passive damping resistor (fundamental and ripple) beside the active
+    (virtual-resistor) design.
+
+    Exit codes: 0 the check ran (whatever its outcome); 2 bad input.
+    """
+    loaded = load_case(case)
+    if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
+        fail(f"{output}: the figure must end in .png, .svg or .pdf")
+    from loopcheck.casefile import CaseError
+    from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
+
+    try:
+        pwm, pwm_warn = read_pwm(loaded, required=True)
+        opts = read_harmonics_options(loaded)
+        op = operating_point_of(loaded, pwm, opts)
+    except CaseError as exc:
+        fail(str(exc))
+    print_warnings(loaded)
+    for msg in pwm_warn:
+        warn(msg)
+
+    from loopcheck.harmonics import OvermodulationError, harmonic_check
+    from loopcheck.passive import compare_damping
+
+    design = loaded.design
+    try:
+        check = harmonic_check(design, pwm, op, opts.max_group, opts.max_sideband, opts.lg_points)
+    except OvermodulationError as exc:
+        fail(f"{loaded.where('pwm')} dc_link: {exc}")
+    losses = compare_damping(design, op, pwm)
+
+    files = []
+    if output is not None:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        from loopcheck.harmonics_plot import harmonics_figure
+
+        fig = harmonics_figure(check, name=design.name)
+        FigureCanvasAgg(fig)
+        try:
+            with atomic_path(output) as tmp:
+                fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
+        except OSError as exc:
+            fail(f"{output}: cannot write the figure ({exc.strerror or exc})")
+        files.append(str(output))
+
+    if json_output:
+        typer.echo(json_line({
+            "case": loaded.path,
+            "name": design.name,
+            "harmonics": check,
+            "damping_losses": losses,
+            "files": files,
+            "caution": CAUTION,
+            "warnings": list(loaded.warnings) + list(pwm_warn),
+        }))
+        return
+
+    w = check.worst
+    lines = [
+        f"harmonics: {design.name} ({loaded.path})",
+        f"  modulator: {pwm.scheme}, {pwm.update} update, fsw = {pwm.fsw_hz:,.0f} Hz, Vdc = {pwm.Vdc_V:.4g} V; "
+        f"modulation index M = {check.modulation_index:.3f}",
+        f"  operating point: {op.current_rms_A:.4g} A rms at {op.current_phase_deg:+.3g} deg to the grid voltage "
+        f"({op.grid_peak_V:.4g} V peak); rated current {op.rated_current_rms_A:.4g} A rms",
+        f"  grid inductance Lg = {check.Lg_H * 1e3:.4g} mH",
+        "",
+        f"  {'sideband':<12}{'frequency':>12}{'order h':>10}{'converter':>12}{'|i2/vi|':>11}{'grid current':>14}"
+        f"{'limit':>9}{'margin':>10}",
+        f"  {'(m, n)':<12}{'[Hz]':>12}{'':>10}{'[V peak]':>12}{'[mA/V]':>11}{'[% rated]':>14}{'[%]':>9}{'[dB]':>10}",
+    ]
+    biggest = sorted(check.sidebands, key=lambda s: -s.percent)[:top]
+    for s in sorted(biggest, key=lambda s: s.frequency_hz):
+        mark = " *" if s is w or (s.m, s.n) == (w.m, w.n) else ""
+        lim = f"{s.limit_percent:.3g}{'a' if s.assumed_limit else ''}"
+        lines.append(
+            f"  {f'({s.m}, {s.n:+d})':<12}{s.frequency_hz:>12,.0f}{s.order:>10.1f}{s.converter_V:>12.4g}"
+            f"{s.admittance_S * 1e3:>11.4g}{s.percent:>14.4g}{lim:>9}{s.margin_db:>+10.1f}{mark}"
+        )
+    verdict = "within" if check.complies else "ABOVE"
+    lines += [
+        "  (* worst sideband; 'a': limit from loopcheck's above-table assumption, see below)",
+        "",
+        f"  worst sideband: {w.frequency_hz:,.0f} Hz (h = {w.order:.1f}), {w.percent:.4g} % of rated current, "
+        f"limit {w.limit_percent:.3g} %, margin {w.margin_db:+.1f} dB -> {verdict} the limits",
+        f"  all sidebands together: {check.total_percent:.4g} % of rated current (rss; the standards' 5 % TDD/TRD "
+        "covers h <= 50 only)",
+    ]
+    if check.worst_over_range is not None:
+        r = check.worst_over_range
+        lo, hi = design.grid.Lg_range_H
+        lines.append(
+            f"  over Lg = {lo * 1e3:.4g} .. {hi * 1e3:.4g} mH ({len(check.lg_sweep)} values): smallest margin "
+            f"{r.margin_db:+.1f} dB at Lg = {r.Lg_H * 1e3:.4g} mH ({r.frequency_hz:,.0f} Hz, {r.percent:.4g} %)"
+        )
+    lines += ["", "  damping resistor loss (per phase and total):",
+              f"    {'variant':<62}{'zeta':>6}{'fund.':>9}{'ripple':>9}{'total':>10}"]
+    for v in losses.variants:
+        rip = "n/a" if v.ripple_W is None else f"{v.ripple_W:.3g}"
+        lines.append(
+            f"    {v.label[:62]:<62}{v.damping_ratio:>6.3f}{v.fundamental_W:>8.3g}W{rip:>8}W{v.total_W:>9.4g}W"
+        )
+    lines.append("    (zeta: damping ratio of the filter resonance without control; fund./ripple: per phase)")
+    for n in losses.notes:
+        lines.append(f"    note: {n}")
+    lines += ["", "  limits: " + "; ".join(check.limit_tables), "  assumptions:"]
+    lines += [f"    - {a}" for a in check.assumptions]
+    lines += ["", f"  {CAUTION}"]
+    lines += [f"  wrote {f}" for f in files]
+    typer.echo("\n".join(lines))
