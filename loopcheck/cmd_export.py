@@ -62,7 +62,9 @@ def export(
     settings = FirmwareSettings()
     if "firmware" in loaded.tables:
         try:
-            settings, notes = read_firmware_settings(loaded.tables["firmware"], where)
+            settings, notes = read_firmware_settings(
+                loaded.tables["firmware"], where, damping_gain_used=loaded.design.control.Hi_V_per_A != 0.0
+            )
         except CaseError as exc:
             fail(str(exc))
         for n in notes:

@@ -186,6 +186,11 @@ class NumberFormat:
         raise ValueError("word longer than 64 bits")  # pragma: no cover - rejected when read
 
     @property
+    def range_text(self) -> str:
+        """Exact representable range, e.g. ``-4 .. 4 - 2^-13`` (fixed)."""
+        return f"{-(2.0**self.integer_bits):g} .. {2.0**self.integer_bits:g} - 2^-{self.fraction_bits}"
+
+    @property
     def label(self) -> str:
         """Short name: ``Q2.13``, ``float32``, ``float64``."""
         if self.is_fixed:
@@ -196,12 +201,10 @@ class NumberFormat:
     def description(self) -> str:
         """One line stating exactly what the format means."""
         if self.is_fixed:
-            lo = self.int_min * self.lsb
-            hi = self.int_max * self.lsb
             return (
                 f"{self.label}: signed two's complement, {self.word_bits}-bit word (1 sign + {self.integer_bits} integer "
                 f"+ {self.fraction_bits} fraction bits), value = integer * 2^-{self.fraction_bits}, "
-                f"range {lo:.10g} .. {hi:.10g}, LSB {self.lsb:.6g}, rounding {self.rounding}"
+                f"range {self.range_text}, LSB {self.lsb:.6g}, rounding {self.rounding}"
             )
         if self.kind == "float32":
             return "float32: IEEE 754 single precision, round to nearest even"
@@ -305,8 +308,8 @@ def quantise_value(x: float, fmt: NumberFormat, what: str = "coefficient") -> QV
         if q < fmt.int_min or q > fmt.int_max:
             need = _integer_bits_needed(x)
             raise FirmwareFormatError(
-                f"{what} = {x:.10g} does not fit {fmt.label} (range {fmt.int_min * fmt.lsb:.10g} .. "
-                f"{fmt.int_max * fmt.lsb:.10g}); it needs at least {need} integer bits"
+                f"{what} = {x:.10g} does not fit {fmt.label} (range {fmt.range_text}); "
+                f"it needs at least {need} integer bits"
             )
         v = math.ldexp(float(q), -fmt.fraction_bits)
         return QValue(x, v, q, _rel(v, x))
@@ -775,21 +778,31 @@ def recheck(design: Design, stored: ControllerCoefficients, q: QuantisedControll
     :data:`GAIN_ERROR_LIMIT`."""
     Ts = design.sampling.Ts_s
     before = loop_figures(design, stored, fb_scale, ic_scale, tol)
+    warnings: list[str] = []
+    if not before.stable:
+        warnings.append(
+            f"the design itself is {before.verdict.upper()} (exact coefficients, spectral radius "
+            f"{before.spectral_radius:.9f}): do not run this controller"
+        )
     if q is None or q.number_format.kind == "float64":
         poles = []
         for s in stored.sections:
             r, t, c = section_poles(s.a)
             f = t / (2 * math.pi * Ts)
             poles.append(PoleShift(s.name, s.tuned_frequency_hz, r, r, f, f, c, c, 0.0 if s.tuned_frequency_hz else None))
-        return Recheck(before, None, tuple(poles), peak_shift_limit, ())
+        return Recheck(before, None, tuple(poles), peak_shift_limit, tuple(warnings))
     after = loop_figures(design, q.as_coefficients(), fb_scale, ic_scale, tol)
     poles = _pole_shifts(q, Ts)
-    warnings: list[str] = []
     fmt = q.number_format.label
-    if not after.stable:
+    if before.stable and not after.stable:
         warnings.append(
             f"with the {fmt} coefficients the closed loop is {after.verdict.upper()} (spectral radius "
-            f"{after.spectral_radius:.6f}, was {before.spectral_radius:.6f}): do not run this controller"
+            f"{after.spectral_radius:.9f}, exact {before.spectral_radius:.9f}): do not run this controller"
+        )
+    elif not before.stable and after.stable:
+        warnings.append(
+            f"with the {fmt} coefficients the loop happens to be stable (spectral radius {after.spectral_radius:.9f}), "
+            f"but the exact design is not: a controller this sensitive to rounding is no design to run"
         )
     for p in poles:
         if p.tuned_frequency_hz is None:
@@ -993,10 +1006,12 @@ FIRMWARE_KEYS = (
 _C_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 
 
-def read_firmware_settings(table: dict, where: str) -> tuple[FirmwareSettings, list[str]]:
+def read_firmware_settings(table: dict, where: str, damping_gain_used: bool = True) -> tuple[FirmwareSettings, list[str]]:
     """Read a raw ``[firmware]`` table (as tomllib returned it).
 
-    ``where`` is the message prefix (``"cases/x.toml: [firmware]"``). Returns
+    ``where`` is the message prefix (``"cases/x.toml: [firmware]"``);
+    ``damping_gain_used``: whether Hi is non-zero (then a missing
+    capacitor-current scaling is worth a warning). Returns
     the settings and warnings; raises :class:`loopcheck.casefile.CaseError`
     with one line naming the file and key on bad input."""
     from .casefile import CaseError, check_keys, read_choice, read_quantity, read_string
@@ -1067,6 +1082,11 @@ def read_firmware_settings(table: dict, where: str) -> tuple[FirmwareSettings, l
         else:
             icc = cur
             notes.append("capacitor current: same scaling as the regulated current (no ic_sensor given)")
+            if damping_gain_used:
+                warnings.append(
+                    f"{where} ic_sensor: not given; the capacitor current is taken to have the regulated "
+                    f"current's scaling ({cur:.6g} count/A) -- check that it does"
+                )
         if mod_kind == "direct":
             mod = read_quantity(t, "modulator_counts_per_V", "ratio", where, positive=True)
             notes.append(f"modulator: {mod:.10g} count/V (given)")

@@ -303,3 +303,21 @@ def test_doc_q2_13_statements(tmp_path):
     r = run(case)
     assert r.exit_code == 0
     assert "49.7364 Hz" in r.stdout and "251.2193 Hz" in r.stdout and "0.0149" in r.stdout
+
+
+def test_unstable_design_is_flagged_even_without_quantisation(tmp_path):
+    # Hi = 1 V/A is too little damping for this filter (resonance below fs/6 with
+    # grid-current feedback): the closed-loop eigenvalues say unstable.
+    text = DEMO_TOML.split("[firmware]")[0].replace('Hi = "12 V/A"', 'Hi = "1 V/A"')
+    case = write_case(tmp_path, text)
+    r = run(case, "--header", tmp_path / "x.h")
+    assert r.exit_code == 0 and "the design itself is UNSTABLE" in r.stdout
+    assert "#error" in (tmp_path / "x.h").read_text()
+    assert run(case, "--fail-on-unstable").exit_code == 4
+
+
+def test_missing_capacitor_current_scaling_is_warned(tmp_path):
+    case = write_case(tmp_path, with_firmware(DEMO_TOML, ic_sensor=None))
+    r = run(case)
+    assert r.exit_code == 0
+    assert "[firmware] ic_sensor: not given" in r.stderr
