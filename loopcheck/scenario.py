@@ -158,10 +158,11 @@ class Event:
             return f"grid phase jump {self.angle_deg:+.4g} deg"
         if k == "grid-inductance-step":
             return f"Lg -> {self.Lg_H * 1e3:.4g} mH"
+        peak = "default peak" if self.peak_V is None else f"{self.peak_V:.4g} V"
         if k == "resonance-burst":
-            f = "resonance" if self.frequency_hz is None else f"{self.frequency_hz:.5g} Hz"
-            return f"burst {self.peak_V:.4g} V at {f}, {self.cycles} cycles"
-        return f"voltage pulse {self.peak_V:.4g} V"
+            f = "the resonance" if self.frequency_hz is None else f"{self.frequency_hz:.5g} Hz"
+            return f"burst {peak} at {f}, {self.cycles} cycles"
+        return f"voltage pulse {peak}"
 
 
 @dataclass(frozen=True)
