@@ -134,7 +134,8 @@ def simulate(
     print_warnings(loaded)
 
     from loopcheck.pwm_tables import read_pwm
-    from loopcheck.simulate import resonance_rate_check, simulate as run, write_csv
+    from loopcheck.simulate import grid_peak_voltage_V, reference_peak_A, resonance_rate_check, write_csv
+    from loopcheck.simulate import simulate as run
     from loopcheck.verdict import classify
 
     design = loaded.design
@@ -142,6 +143,8 @@ def simulate(
         pwm, pwm_warn = read_pwm(loaded, required=False)
     except CaseError as exc:
         fail(str(exc))
+    if sc.phases is None and pwm is not None:
+        sc = replace(sc, phases=pwm.phases)
     w = run(design, sc)
     rc = resonance_rate_check(design, sc)
     w_c = rc_c = None
@@ -212,6 +215,8 @@ def simulate(
         f"simulate: {design.name} ({loaded.path})",
         f"  run: {sc.duration_s * 1e3:g} ms, Ts = {w.Ts_s * 1e6:.4g} us, computation delay {w.delay:g} Ts, "
         f"{w.points_per_sample} points per sample (exact between samples), start: {sc.start}",
+        f"  grid voltage {grid_peak_voltage_V(design, sc):.4g} V peak, current reference "
+        f"{reference_peak_A(design, sc):.4g} A peak (per phase; {sc.phases or 3}-phase reading of [grid] V and S)",
         f"  LCL resonance with Lg: {w.resonance_hz:,.1f} Hz; critical frequency fs/(4*delay+2): "
         f"{design.sampling.critical_hz:,.1f} Hz",
     ]

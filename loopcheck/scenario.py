@@ -11,18 +11,22 @@ Keys of ``[scenario]``
 ``start``               ``"steady"`` (default): the periodic steady state of
                         the loop under the grid voltage and the reference;
                         ``"rest"``: every state zero at t = 0
+``phases``              1 or 3: how ``[grid] V`` and ``S`` are read for the
+                        defaults below (default: from ``[pwm] scheme`` when
+                        given, else 3)
 ``grid_peak``           peak of the fundamental grid phase voltage, e.g.
                         ``"325 V"``; default sqrt(2/3) times ``[grid] V``
-                        (line-to-line rms of a three-phase grid), 0 V when
-                        ``V`` is not given
+                        (line-to-line rms) for three phases, sqrt(2) times
+                        ``V`` for one; 0 V when ``V`` is not given
 ``grid_phase_deg``      phase of the grid voltage at t = 0 [deg] (default 0)
 ``grid_harmonics``      list of inline tables ``{order = 5, share = "3 %",
                         phase_deg = 0}``: a grid-voltage harmonic of that
                         order with that share of ``grid_peak``
 ``reference_peak``      peak of the sinusoidal current reference, e.g.
                         ``"20 A"``; default the rated peak current
-                        sqrt(2) * S / (sqrt(3) * V) from ``[grid]``, 0 A
-                        when S or V is missing
+                        sqrt(2) * S / (sqrt(3) * V) from ``[grid]`` (three
+                        phases) or sqrt(2) * S / V (one phase), 0 A when S
+                        or V is missing
 ``reference_phase_deg`` reference phase relative to the grid voltage [deg]
                         (default 0: in phase, unity power factor)
 ``trip_current``        the simulation stops when any current exceeds this
@@ -84,6 +88,7 @@ INJECTION_KINDS = ("resonance-burst", "voltage-pulse")
 
 SCENARIO_KEYS = (
     "duration",
+    "phases",
     "points_per_sample",
     "start",
     "grid_peak",
@@ -173,7 +178,8 @@ class Scenario:
     start: "steady" or "rest"; grid_peak_V [V] (fundamental phase-voltage
     peak); grid_phase_deg [deg]; grid_harmonics; reference_peak_A [A];
     reference_phase_deg [deg] (relative to the grid voltage); trip_current_A
-    [A] (None = automatic, inf = never); events (sorted by time)."""
+    [A] (None = automatic, inf = never); events (sorted by time);
+    phases: 1 or 3 (None = 3) for the defaults taken from the grid rating."""
 
     duration_s: float = DEFAULT_DURATION_S
     points_per_sample: int = DEFAULT_POINTS
@@ -185,6 +191,7 @@ class Scenario:
     reference_phase_deg: float = 0.0
     trip_current_A: float | None = None
     events: tuple[Event, ...] = field(default_factory=tuple)
+    phases: int | None = None
 
     @property
     def injections(self) -> tuple[Event, ...]:
@@ -304,6 +311,11 @@ def parse_scenario(table: dict | None, where: str = "<scenario>:", extra_events=
     if duration > 10.0:
         raise CaseError(f"{w} duration: at most 10 s can be simulated, got {_show(table['duration'])}")
     points = _whole(table, "points_per_sample", w, DEFAULT_POINTS, 1, 200)
+    phases = None
+    if "phases" in table:
+        phases = _whole(table, "phases", w, 3, 1, 3)
+        if phases == 2:
+            raise CaseError(f"{w} phases: expected 1 or 3, got 2")
     start = read_choice(table, "start", ("steady", "rest"), w, "steady")
     grid_peak = read_quantity(table, "grid_peak", "voltage", w, None, nonnegative=True)
     grid_phase = _angle(table, "grid_phase_deg", w, 0.0)
@@ -345,6 +357,7 @@ def parse_scenario(table: dict | None, where: str = "<scenario>:", extra_events=
         reference_phase_deg=ref_phase,
         trip_current_A=trip,
         events=tuple(events),
+        phases=phases,
     )
     return _with_events(sc, tuple(extra_events))
 

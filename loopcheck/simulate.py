@@ -297,22 +297,24 @@ def _steady_state(seg: _Segment, lay: _Layout, S0: np.ndarray) -> np.ndarray | N
 # ---------------------------------------------------------------------------
 
 
-def rated_peak_current_A(design: Design) -> float | None:
-    """sqrt(2) * S / (sqrt(3) * V) from the grid rating [A] (three-phase,
-    V line-to-line rms), or None when S or V is missing."""
+def rated_peak_current_A(design: Design, phases: int = 3) -> float | None:
+    """Rated peak current [A] from the grid rating: sqrt(2) * S / (sqrt(3) * V)
+    for three phases (V line-to-line rms), sqrt(2) * S / V for one phase;
+    None when S or V is missing."""
     g = design.grid
     if g.S_VA is None or g.V_V is None:
         return None
-    return math.sqrt(2.0) * g.S_VA / (math.sqrt(3.0) * g.V_V)
+    return math.sqrt(2.0) * g.S_VA / ((math.sqrt(3.0) if phases == 3 else 1.0) * g.V_V)
 
 
 def grid_peak_voltage_V(design: Design, scenario: Scenario) -> float:
     """Fundamental grid phase-voltage peak [V]: the scenario's value, else
-    sqrt(2/3) * V (three-phase, V line-to-line rms), else 0."""
+    sqrt(2/3) * V (three phases, V line-to-line rms) or sqrt(2) * V (one
+    phase), else 0."""
     if scenario.grid_peak_V is not None:
         return scenario.grid_peak_V
     if design.grid.V_V is not None:
-        return design.grid.V_V * math.sqrt(2.0 / 3.0)
+        return design.grid.V_V * math.sqrt(2.0 / 3.0 if (scenario.phases or 3) == 3 else 2.0)
     return 0.0
 
 
@@ -320,7 +322,7 @@ def reference_peak_A(design: Design, scenario: Scenario) -> float:
     """Initial reference peak [A]: the scenario's value, else the rated peak, else 0."""
     if scenario.reference_peak_A is not None:
         return scenario.reference_peak_A
-    r = rated_peak_current_A(design)
+    r = rated_peak_current_A(design, scenario.phases or 3)
     return 0.0 if r is None else r
 
 
