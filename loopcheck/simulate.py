@@ -747,7 +747,7 @@ def resonance_rate_check(
     excitation alone, so it is simulated from rest with no grid voltage and
     no reference, with the grid inductance valid at the excitation time.
     After the excitation ends, ``window_samples`` samples of the grid
-    current (fewer if the plant changes or the run trips) are fitted by the
+    current (fewer if the plant changes within the window) are fitted by the
     matrix-pencil method (Hua and Sarkar 1990, see :func:`matrix_pencil`);
     the fitted oscillation in the resonance band (:func:`resonance_band_hz`)
     with the largest energy in the window gives the simulated rate
