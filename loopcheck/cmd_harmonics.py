@@ -63,15 +63,13 @@ def harmonics(
 
     files = []
     if output is not None:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-
         from loopcheck.harmonics_plot import harmonics_figure
+        from loopcheck.sim_plot import save_figure
 
         fig = harmonics_figure(check, name=design.name)
-        FigureCanvasAgg(fig)
         try:
             with atomic_path(output) as tmp:
-                fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
+                save_figure(fig, tmp)
         except OSError as exc:
             fail(f"{output}: cannot write the figure ({exc.strerror or exc})")
         files.append(str(output))

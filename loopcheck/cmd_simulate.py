@@ -165,15 +165,12 @@ def simulate(
             )
     files = []
     if output is not None:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-        from loopcheck.sim_plot import waveform_figure
+        from loopcheck.sim_plot import save_figure, waveform_figure
 
         fig = waveform_figure(w, w_c, rc, rc_c)
-        FigureCanvasAgg(fig)
         try:
             with atomic_path(output) as tmp:
-                fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
+                save_figure(fig, tmp)
         except OSError as exc:
             fail(f"{output}: cannot write the figure ({exc.strerror or exc})")
         files.append(str(output))

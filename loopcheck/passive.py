@@ -57,7 +57,7 @@ from .harmonics import (
     plant_response,
 )
 from .model import Design, PassiveDamping, design_resonance_hz
-from .plant import OUTPUT_I2, design_plant
+from .plant import design_plant
 
 
 @dataclass(frozen=True)

@@ -24,7 +24,6 @@ Design values are invented for the tests.
 from __future__ import annotations
 
 import math
-from dataclasses import replace
 
 import numpy as np
 import pytest

@@ -207,3 +207,21 @@ def test_commands_import_lazily():
     assert out.strip() == "False"
     r = invoke("--help")
     assert "simulate" in r.stdout and "harmonics" in r.stdout
+
+
+def test_matplotlib_only_in_plot_modules():
+    # project rule: only modules named *plot*/*figure*/*report*/*render*/*chart* import matplotlib
+    import ast
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent / "loopcheck"
+    mine = ["simulate", "scenario", "harmonics", "limits", "passive", "pwm_tables", "cmd_simulate", "cmd_harmonics"]
+    for name in mine:
+        tree = ast.parse((root / f"{name}.py").read_text())
+        for node in ast.walk(tree):
+            mods = []
+            if isinstance(node, ast.Import):
+                mods = [a.name for a in node.names]
+            elif isinstance(node, ast.ImportFrom) and node.module:
+                mods = [node.module]
+            assert not any(m.split(".")[0] == "matplotlib" for m in mods), name
