@@ -67,3 +67,6 @@ app.command("simulate")(cmd_simulate.simulate)
 from loopcheck import cmd_harmonics  # noqa: E402
 
 app.command("harmonics")(cmd_harmonics.harmonics)
+from loopcheck import cmd_map  # noqa: E402
+
+app.command("map")(cmd_map.map_command)

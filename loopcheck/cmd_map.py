@@ -1,0 +1,229 @@
+"""``loopcheck map``: stability map of a case over two parameters."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from loopcheck.cli_common import atomic_path, atomic_write_text, fail, json_line, load_case, print_warnings, progress
+
+FIGURE_SUFFIXES = (".png", ".svg", ".pdf")
+_AXES_HELP = "fr/fs, fs, Lg, Kp, Hi, C, L2, L1, Kr or Ki"
+
+
+def map_command(
+    case: Annotated[Path, typer.Argument(help="Case file (TOML).", show_default=False, metavar="CASE.toml")],
+    x: Annotated[Optional[str], typer.Option("--x", help=f"x axis: {_AXES_HELP} (overrides [map] x).")] = None,
+    x_range: Annotated[
+        Optional[tuple[str, str]],
+        typer.Option("--x-range", help='x from and to, with units for physical axes, e.g. --x-range "0 mH" "5 mH".'),
+    ] = None,
+    x_points: Annotated[Optional[int], typer.Option("--x-points", help="Number of x values.")] = None,
+    x_scale: Annotated[Optional[str], typer.Option("--x-scale", help='"linear" or "log".')] = None,
+    y: Annotated[Optional[str], typer.Option("--y", help=f"y axis: {_AXES_HELP} (overrides [map] y).")] = None,
+    y_range: Annotated[
+        Optional[tuple[str, str]],
+        typer.Option("--y-range", help='y from and to, e.g. --y-range "0 V/A" "40 V/A".'),
+    ] = None,
+    y_points: Annotated[Optional[int], typer.Option("--y-points", help="Number of y values.")] = None,
+    y_scale: Annotated[Optional[str], typer.Option("--y-scale", help='"linear" or "log".')] = None,
+    metric: Annotated[
+        Optional[list[str]],
+        typer.Option(
+            "--metric",
+            help="Also compute per point: phase-margin, gain-margin, sensitivity or all (repeat the option for several).",
+        ),
+    ] = None,
+    output: Annotated[
+        Optional[Path], typer.Option("-o", "--output", help="Write the figure here (.png, .svg or .pdf).")
+    ] = None,
+    csv_path: Annotated[
+        Optional[Path], typer.Option("--csv", help="Write one row per grid point (SI units) to this CSV file.")
+    ] = None,
+    json_output: Annotated[
+        bool, typer.Option("--json", help="Print one JSON object with the stable intervals per x value.")
+    ] = False,
+    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar on stderr.")] = False,
+) -> None:
+    """Stability map of a case over two parameters: the stable region with
+    its exact boundary (D-decomposition along gain axes), the spectral
+    radius and optional margins per grid point, the design point and the
+    critical ratio fr/fs = 1/(4*delay + 2).
+
+    Axes come from the case's [map] table (see docs/maps.md); the options
+    override it. Exit codes: 0 the map was computed; 2 bad input.
+    """
+    if output is not None and output.suffix.lower() not in FIGURE_SUFFIXES:
+        fail(f"-o {output}: the figure format follows the suffix; use .png, .svg or .pdf")
+    loaded = load_case(case)
+    print_warnings(loaded)
+
+    from loopcheck.casefile import CaseError
+    from loopcheck.map_table import Overrides, map_spec
+
+    try:
+        spec = map_spec(
+            loaded,
+            Overrides(
+                x=x, x_range=x_range, x_points=x_points, x_scale=x_scale,
+                y=y, y_range=y_range, y_points=y_points, y_scale=y_scale,
+                metrics=tuple(metric) if metric else None,
+            ),
+        )
+    except CaseError as exc:
+        fail(str(exc))
+
+    from loopcheck.maps import compute_map
+
+    design = loaded.design
+    with progress(1.0, f"map {spec.x.name} x {spec.y.name}", quiet=quiet) as advance:
+        smap = compute_map(design, spec, progress=advance)
+
+    if output is not None:
+        from loopcheck.map_plot import map_figure, save_figure
+
+        kr_unit = "V/A" if design.control.wc_rad_s > 0 else "V/A/s"
+        fig = map_figure(smap, kr_unit=kr_unit)
+        with atomic_path(output) as tmp:
+            save_figure(fig, tmp)
+    if csv_path is not None:
+        atomic_write_text(csv_path, csv_text(smap))
+    if json_output:
+        typer.echo(json_line(json_record(smap, loaded.path, output, csv_path)))
+    else:
+        typer.echo(summary_text(smap, loaded.path, output, csv_path))
+
+
+# --- rendering of the results (text only; numpy imported lazily) -------------
+
+#: CSV number format: 17 significant digits, so every row can be recomputed exactly.
+_FMT = "%.17g"
+
+
+def _metric_columns(smap) -> list[tuple[str, object]]:
+    cols = []
+    if smap.phase_margin_deg is not None:
+        cols.append(("phase_margin_deg", smap.phase_margin_deg))
+    if smap.gain_margin_lower is not None:
+        cols += [("gain_margin_lower_factor", smap.gain_margin_lower), ("gain_margin_upper_factor", smap.gain_margin_upper)]
+    if smap.sensitivity_peak is not None:
+        cols += [("sensitivity_peak", smap.sensitivity_peak), ("sensitivity_peak_hz", smap.sensitivity_peak_hz)]
+    return cols
+
+
+def csv_text(smap) -> str:
+    """One row per grid point (x outer, y inner): every parameter that
+    varies across the map under its case-file name in SI base units, then
+    ``stable`` (0/1), ``spectral_radius`` and the requested metrics (empty
+    where undefined, ``inf`` for an unbounded upper gain margin)."""
+    import io
+
+    import numpy as np
+
+    names = list(smap.parameters)
+    cols = [smap.parameters[k].T.ravel() for k in names]
+    names += ["stable", "spectral_radius"]
+    cols += [smap.stable.T.ravel().astype(int), smap.spectral_radius.T.ravel()]
+    for k, arr in _metric_columns(smap):
+        names.append(k)
+        cols.append(arr.T.ravel())
+    fmts = [_FMT] * (len(names) - len(_metric_columns(smap)) - 2) + ["%d", _FMT] + [_FMT] * len(_metric_columns(smap))
+    buf = io.StringIO()
+    buf.write(",".join(names) + "\n")
+    block = 20000
+    n = cols[0].size
+    for s in range(0, n, block):
+        parts = [np.char.mod(f, c[s : s + block]) for f, c in zip(fmts, cols)]
+        rows = parts[0]
+        for p in parts[1:]:
+            rows = np.char.add(np.char.add(rows, ","), p)
+        text = "\n".join(rows.tolist())
+        buf.write(text.replace("nan", "") + "\n")
+    return buf.getvalue()
+
+
+def _axis_record(ax) -> dict:
+    return {"name": ax.name, "unit": ax.unit, "from": ax.start, "to": ax.stop, "points": ax.points,
+            "scale": "log" if ax.log else "linear"}
+
+
+def json_record(smap, case_path: str, figure, csv_path) -> dict:
+    """The JSON object printed by ``--json``: axes, design point, critical
+    ratio, and per x value the stable y intervals and boundaries."""
+    return {
+        "case": case_path,
+        "name": smap.name,
+        "x": _axis_record(smap.x),
+        "y": _axis_record(smap.y),
+        "critical_ratio": smap.critical_ratio,
+        "delay": smap.delay,
+        "stable_fraction": smap.stable_fraction,
+        "design_point": {
+            "x": smap.design_x,
+            "y": smap.design_y,
+            "stable": smap.design_stable,
+            "stable_y_interval": list(smap.design_interval) if smap.design_interval else None,
+        },
+        "columns": [
+            {"x": float(x), "stable_y_intervals": [list(iv) for iv in ivs], "boundaries": list(b), "method": m}
+            for x, ivs, b, m in zip(smap.x_values, smap.intervals, smap.boundaries, smap.boundary_method)
+        ],
+        "metrics": [k for k, _ in _metric_columns(smap)],
+        "figure": str(figure) if figure is not None else None,
+        "csv": str(csv_path) if csv_path is not None else None,
+    }
+
+
+def _q(value: float, name: str) -> str:
+    from loopcheck.maps import AXIS_UNITS
+    from loopcheck.units import format_quantity
+
+    unit = AXIS_UNITS[name]
+    if not unit:
+        return f"{value:.4g}"
+    return format_quantity(value, unit, prefix=unit not in ("V/A", "V/A/s"))
+
+
+def summary_text(smap, case_path: str, figure, csv_path) -> str:
+    """Readable summary for the terminal."""
+    xn, yn = smap.x.name, smap.y.name
+    lines = [
+        f"stability map of {smap.name} ({case_path})",
+        f"  x: {xn} {_q(smap.x.start, xn)} .. {_q(smap.x.stop, xn)} ({smap.x.points} values"
+        f"{', log' if smap.x.log else ''})",
+        f"  y: {yn} {_q(smap.y.start, yn)} .. {_q(smap.y.stop, yn)} ({smap.y.points} values"
+        f"{', log' if smap.y.log else ''})",
+        f"  stable share of the map: {100 * smap.stable_fraction:.1f} %",
+    ]
+    verdict = "stable" if smap.design_stable else "NOT stable"
+    lines.append(f"  design point: {xn} = {_q(smap.design_x, xn)}, {yn} = {_q(smap.design_y, yn)}: {verdict}")
+    if smap.design_interval is not None:
+        a, b = smap.design_interval
+        edge_lo = "range end" if a <= min(smap.y.start, smap.design_y) else "boundary"
+        edge_hi = "range end" if b >= max(smap.y.stop, smap.design_y) else "boundary"
+        lines.append(
+            f"  stable {yn} at this {xn}: {_q(a, yn)} ({edge_lo}) .. {_q(b, yn)} ({edge_hi}); "
+            f"the design is {_q(smap.design_y - a, yn)} above the lower and {_q(b - smap.design_y, yn)} below the upper edge"
+        )
+    crit = smap.critical_ratio
+    lines.append(f"  critical ratio fr/fs = 1/(4 delay + 2) = {crit:.4g} (delay {smap.delay:g} sampling periods)")
+    methods = smap.boundary_method
+    n_exact = sum(m == "exact" for m in methods)
+    if n_exact == len(methods):
+        lines.append(f"  boundaries: exact along {yn} in all {len(methods)} columns (D-decomposition, eigenvalue-checked)")
+    else:
+        lines.append(
+            f"  boundaries: exact in {n_exact} of {len(methods)} columns, elsewhere bisection between {yn} grid "
+            f"values (a region thinner than one {yn} step can be missed there)"
+        )
+    if figure is not None:
+        lines.append(f"  figure: {figure}")
+    if csv_path is not None:
+        lines.append(f"  csv: {csv_path}")
+    lines.append(
+        "  caution: a screening aid; verify on hardware with protection enabled and follow local codes, the "
+        "utility's interconnection rules and licensed engineering practice."
+    )
+    return "\n".join(lines)

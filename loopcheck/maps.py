@@ -1,0 +1,1300 @@
+"""Stability maps: where in a plane of two design parameters the sampled
+current loop is stable, with exact region boundaries.
+
+Conventions
+-----------
+A map sweeps two parameters of a :class:`loopcheck.model.Design` (the
+*axes*) over a grid and keeps everything else at the design's own values.
+Axis names are the case-file names (:data:`AXIS_NAMES`), values are SI
+(H, F, Hz, V/A, V/(A*s)); ``"fr/fs"`` is the plain ratio of the LCL
+resonance (grid inductance included) to the sampling frequency.
+
+``"fr/fs"`` moves the resonance by scaling the filter capacitance (C, and
+the damping capacitor Cd of the split passive-damping variants, by the same
+factor) with fs, the inductors and every gain fixed, so the normalised gains
+Hi*Ts/L1 and Kp*Ts/(L1+L2+Lg) stay constant along that axis. Combined with
+an ``"fs"``, ``"L1"``, ``"L2"`` or ``"Lg"`` axis the capacitance is chosen
+per point so that every point has exactly the ratio on the axis.
+
+Verdicts come from closed-loop eigenvalues (stable: every eigenvalue inside
+``|z| < 1 - tolerance``, as in :mod:`loopcheck.verdict`), the same model as
+:func:`loopcheck.analysis.analyse` (exact ZOH with the computation delay,
+damping loop, controller blocks), so a map point agrees with ``check``.
+
+Method
+------
+The gains ``Kp``, ``Hi``, ``Kr`` and ``Ki`` enter the closed-loop matrix
+affinely through a rank-one term, ``A(y) = A0 + y*A1``, so the
+characteristic polynomial is affine in the gain: ``p(z; y) = p0(z) +
+y*p1(z)``. Along a gain axis the region boundary is found exactly by
+D-decomposition (Neimark 1948; Gryazina & Polyak 2006): a root can cross the
+unit circle only at z = 1 (``y = -p0(1)/p1(1)``), at z = -1, or at
+``z = e^{jw}`` where ``p0/p1`` is real, i.e. at the zeros of the
+trigonometric polynomial ``Im(p0(e^{jw}) conj(p1(e^{jw}))) = sum_m d_m
+sin(m w)``; dividing by ``sin w`` leaves a Chebyshev series of the second
+kind in ``cos w``, solved with a colleague matrix (Good 1961). Every piece
+between two candidate gains is then classified by the eigenvalues of the
+state-space matrix (never by the polynomial), and every boundary that
+changes the verdict is verified by eigenvalues just beside it; where that
+check fails (ill-conditioned polynomial: very low or very high fr/fs, many
+resonators) the boundary is located by eigenvalue bisection instead (the
+slower exact path).
+
+The gridded spectral radius along a gain axis follows the roots of
+``p(z; y)`` from one grid value to the next with a predictor and Newton
+steps, checked against Newton's identities (sum of roots and sum of squares
+against the coefficients); a failed check re-seeds the roots from a
+companion-matrix eigenvalue problem. Lines where polynomial roots and
+state-space eigenvalues disagree, or where the tracked radius contradicts
+the exact intervals, are recomputed point by point with state-space
+eigenvalues. When neither axis is a gain, every grid point is an eigenvalue
+problem and boundaries are located by bisection between grid points (a
+region thinner than one grid step can then be missed; the map says so per
+column in :attr:`StabilityMap.boundary_method`).
+
+References
+----------
+.. [1] Yu. I. Neimark, "Search for the parameter values that make automatic
+   control system stable", Avtomatika i Telemekhanika, vol. 9, no. 3,
+   pp. 190-203, 1948 (D-decomposition; from memory).
+.. [2] E. N. Gryazina and B. T. Polyak, "Stability regions in the parameter
+   space: D-decomposition revisited", Automatica, vol. 42, no. 1,
+   pp. 13-26, 2006 (from memory).
+.. [3] I. J. Good, "The colleague matrix, a Chebyshev analogue of the
+   companion matrix", Quart. J. Math., vol. 12, no. 1, pp. 61-68, 1961
+   (from memory).
+.. [4] N. J. Higham, "The scaling and squaring method for the matrix
+   exponential revisited", SIAM J. Matrix Anal. Appl., vol. 26, no. 4,
+   pp. 1179-1193, 2005 (the batched matrix exponential used here).
+.. [5] D. A. Bini, "Numerical computation of polynomial zeros by means of
+   Aberth's method", Numer. Algorithms, vol. 13, pp. 179-200, 1996
+   (Newton steps on polynomial roots, Newton's identities as checks; from
+   memory).
+.. [6] J. Dannehl, M. Liserre and F. W. Fuchs, "Filter-Based Active Damping
+   of Voltage Source Converters With LCL Filter", IEEE Trans. Ind.
+   Electron., vol. 58, no. 8, pp. 3623-3633, 2011, and C. A. Parker,
+   D. G. Holmes and B. P. McGrath, "Regions of Active Damping Control for
+   LCL Filters", IEEE Trans. Ind. Appl., vol. 50, no. 1, pp. 424-432, 2014
+   (the critical frequency fs/6 drawn on fr/fs axes; from memory).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .controller import controller_blocks, parallel
+from .loop import series_open_loop
+from .model import Design, design_resonance_hz
+from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space
+from .verdict import TOLERANCE
+
+#: Parameters a map axis can sweep (case-file names; "fr/fs" is a ratio).
+AXIS_NAMES = ("fr/fs", "fs", "Lg", "Kp", "Hi", "C", "L2", "L1", "Kr", "Ki")
+#: Axes along which the closed-loop matrix is affine (exact D-decomposition).
+GAIN_AXES = ("Kp", "Hi", "Kr", "Ki")
+#: SI unit of each axis ("" for the ratio; Kr is V/(A*s) for the ideal
+#: resonator and V/A for the damped one, see :class:`loopcheck.model.Control`).
+AXIS_UNITS = {
+    "fr/fs": "",
+    "fs": "Hz",
+    "Lg": "H",
+    "Kp": "V/A",
+    "Hi": "V/A",
+    "C": "F",
+    "L2": "H",
+    "L1": "H",
+    "Kr": "V/A/s",
+    "Ki": "V/A/s",
+}
+#: Metrics that can be asked for per grid point besides the spectral radius.
+METRICS = ("phase-margin", "gain-margin", "sensitivity")
+
+#: Pairs of axes that cannot be combined (both set the filter capacitance).
+_CONFLICTS = {frozenset(("fr/fs", "C"))}
+
+ProgressFn = Callable[[float], None]
+
+
+# ---------------------------------------------------------------------------
+# axes and results
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Axis:
+    """One map axis.
+
+    name: one of :data:`AXIS_NAMES`; start, stop: first and last value
+    [SI unit of the parameter, :data:`AXIS_UNITS`; plain ratio for
+    ``"fr/fs"``], start < stop; points: number of grid values (>= 2);
+    log: geometric instead of linear spacing (start > 0)."""
+
+    name: str
+    start: float
+    stop: float
+    points: int
+    log: bool = False
+
+    def values(self) -> np.ndarray:
+        """The grid values [SI unit of the axis], ascending."""
+        if self.log:
+            return np.geomspace(self.start, self.stop, self.points)
+        return np.linspace(self.start, self.stop, self.points)
+
+    @property
+    def unit(self) -> str:
+        """SI unit of the axis values ("" for the ratio fr/fs)."""
+        return AXIS_UNITS[self.name]
+
+    @property
+    def is_gain(self) -> bool:
+        """True for the gains along which the boundary is exact (D-decomposition)."""
+        return self.name in GAIN_AXES
+
+
+@dataclass(frozen=True)
+class MapSpec:
+    """What to map: the x and y axes and the extra per-point metrics
+    (a subset of :data:`METRICS`)."""
+
+    x: Axis
+    y: Axis
+    metrics: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, eq=False)
+class StabilityMap:
+    """A computed stability map. Arrays are indexed ``[iy, ix]``.
+
+    x, y: the axes; x_values, y_values: grid values [axis SI units].
+    stable: every closed-loop eigenvalue inside ``|z| < 1 - tolerance`` [bool].
+    spectral_radius: largest closed-loop eigenvalue magnitude [-].
+    intervals: per x value, the stable y intervals ``(from, to)`` [y unit],
+    clipped to the y range. boundaries: per x value, the y values inside the
+    range where the verdict changes [y unit]. boundary_method: per x value,
+    ``"exact"`` (D-decomposition along a gain axis, each boundary verified
+    by eigenvalues or located by eigenvalue bisection) or ``"refined"``
+    (bisection between grid points; a region thinner than one y step may be
+    missed).
+    parameters: every parameter that varies across the map under its
+    case-file name (``"fs"``, ``"C"``, ``"Cd"``, ``"Lg"``, ``"Kp"``, ``"Hi"``,
+    ``"Kr"``, ``"Ki"``, ``"L1"``, ``"L2"``) as ``[iy, ix]`` arrays [SI], plus
+    ``"fr/fs"`` when it is an axis.
+    phase_margin_deg [deg], gain_margin_lower / gain_margin_upper
+    [controller-gain factor, -; upper inf when unbounded],
+    sensitivity_peak [-] and sensitivity_peak_hz [Hz]: the requested
+    metrics (None when not requested; NaN where undefined, e.g. not stable).
+    design_x, design_y: the case's own values on the axes [axis units];
+    design_stable: its verdict; design_interval: the stable y interval at
+    x = design_x that contains design_y, or None.
+    critical_ratio: 1/(4*delay + 2), the critical fr/fs [-]; delay
+    [sampling periods]; fs_hz, L1_H: the case's own sampling frequency [Hz]
+    and converter-side inductance [H]; Lg_H: nominal grid inductance [H]; Lg_range_H:
+    the case's grid-inductance range [H] or None; tolerance: the band
+    around |z| = 1 counted as not stable [-].
+    """
+
+    name: str
+    x: Axis
+    y: Axis
+    x_values: np.ndarray
+    y_values: np.ndarray
+    stable: np.ndarray
+    spectral_radius: np.ndarray
+    intervals: tuple
+    boundaries: tuple
+    boundary_method: tuple
+    parameters: dict
+    design_x: float
+    design_y: float
+    design_stable: bool
+    design_interval: tuple | None
+    critical_ratio: float
+    delay: float
+    fs_hz: float
+    L1_H: float
+    Lg_H: float
+    Lg_range_H: tuple | None
+    tolerance: float
+    phase_margin_deg: np.ndarray | None = None
+    gain_margin_lower: np.ndarray | None = None
+    gain_margin_upper: np.ndarray | None = None
+    sensitivity_peak: np.ndarray | None = None
+    sensitivity_peak_hz: np.ndarray | None = None
+
+    @property
+    def stable_fraction(self) -> float:
+        """Share of grid points that are stable [-]."""
+        return float(np.mean(self.stable))
+
+
+# ---------------------------------------------------------------------------
+# parameters of map points
+# ---------------------------------------------------------------------------
+
+
+def check_axes(x: str, y: str) -> None:
+    """Raise ValueError when the axis names cannot be combined."""
+    for a in (x, y):
+        if a not in AXIS_NAMES:
+            raise ValueError(f"unknown axis {a!r}; known: {', '.join(AXIS_NAMES)}")
+    if x == y:
+        raise ValueError(f"x and y are both {x!r}")
+    if frozenset((x, y)) in _CONFLICTS:
+        raise ValueError(f"{x!r} and {y!r} both set the filter capacitance; use one of them")
+
+
+def design_value(design: Design, name: str) -> float:
+    """The design's own value of an axis parameter [SI; ratio for fr/fs]."""
+    f, g, c = design.filter, design.grid, design.control
+    return {
+        "fr/fs": lambda: design_resonance_hz(design, with_grid=True) / design.sampling.fs_hz,
+        "fs": lambda: design.sampling.fs_hz,
+        "Lg": lambda: g.Lg_H,
+        "Kp": lambda: c.Kp_V_per_A,
+        "Hi": lambda: c.Hi_V_per_A,
+        "C": lambda: f.C_F,
+        "L2": lambda: f.L2_H,
+        "L1": lambda: f.L1_H,
+        "Kr": lambda: c.Kr,
+        "Ki": lambda: c.Ki_V_per_As,
+    }[name]()
+
+
+def _split_damping(design: Design) -> bool:
+    return design.filter.damping.kind in ("split-RC", "split-RLC")
+
+
+def point_parameters(design: Design, values: dict) -> dict:
+    """Every model parameter at map points [SI], under case-file names.
+
+    ``values`` maps axis names to arrays (or floats) that broadcast against
+    each other; the result maps ``"L1", "C", "Cd", "L2", "Lg", "fs", "Kp",
+    "Hi", "Kr", "Ki"`` to arrays of the common shape. ``"fr/fs"`` sets C
+    (and Cd, by the same factor) from the point's own L1, L2, Lg and fs:
+    ``C_total = (L1 + L2 + Lg) / (L1 (L2 + Lg) (2 pi fr)^2)`` (lossless LCL
+    resonance, Liserre, Blaabjerg & Hansen, IEEE Trans. Ind. Appl., vol. 41,
+    no. 5, 2005)."""
+    f, g, s, c = design.filter, design.grid, design.sampling, design.control
+    prm = {
+        "L1": f.L1_H,
+        "C": f.C_F,
+        "Cd": f.damping.Cd_F if _split_damping(design) else 0.0,
+        "L2": f.L2_H,
+        "Lg": g.Lg_H,
+        "fs": s.fs_hz,
+        "Kp": c.Kp_V_per_A,
+        "Hi": c.Hi_V_per_A,
+        "Kr": c.Kr,
+        "Ki": c.Ki_V_per_As,
+    }
+    for k, v in values.items():
+        if k != "fr/fs":
+            prm[k] = v
+    arrays = np.broadcast_arrays(*(np.asarray(v, dtype=float) for v in list(prm.values()) + list(values.values())))
+    out = {k: np.array(a) for k, a in zip(prm, arrays)}
+    if "fr/fs" in values:
+        ratio = np.asarray(values["fr/fs"], dtype=float)
+        w = 2.0 * math.pi * ratio * out["fs"]
+        L2t = out["L2"] + out["Lg"]
+        c_total = (out["L1"] + L2t) / (out["L1"] * L2t * w**2)
+        scale = c_total / (f.C_F + (f.damping.Cd_F if _split_damping(design) else 0.0))
+        out["C"] = np.broadcast_to(f.C_F * scale, out["C"].shape).copy()
+        if _split_damping(design):
+            out["Cd"] = np.broadcast_to(f.damping.Cd_F * scale, out["C"].shape).copy()
+    return out
+
+
+def point_design(design: Design, values: dict) -> Design:
+    """The design at one map point: ``values`` maps axis names to floats
+    [axis units]. Used to recompute any map point independently."""
+    p = {k: float(v) for k, v in point_parameters(design, values).items()}
+    f = design.filter
+    damping = f.damping
+    if _split_damping(design):
+        damping = dataclasses.replace(damping, Cd_F=p["Cd"])
+    filt = dataclasses.replace(f, L1_H=p["L1"], C_F=p["C"], L2_H=p["L2"], damping=damping)
+    grid = dataclasses.replace(design.grid, Lg_H=p["Lg"])
+    sampling = dataclasses.replace(design.sampling, fs_hz=p["fs"])
+    control = dataclasses.replace(
+        design.control, Kp_V_per_A=p["Kp"], Hi_V_per_A=p["Hi"], Kr=p["Kr"], Ki_V_per_As=p["Ki"]
+    )
+    return dataclasses.replace(design, filter=filt, grid=grid, sampling=sampling, control=control)
+
+
+# ---------------------------------------------------------------------------
+# batched model: exact ZOH with delay, damping loop, controller
+# ---------------------------------------------------------------------------
+
+_PADE13 = (
+    64764752532480000.0,
+    32382376266240000.0,
+    7771770303897600.0,
+    1187353796428800.0,
+    129060195264000.0,
+    10559470521600.0,
+    670442572800.0,
+    33522128640.0,
+    1323241920.0,
+    40840800.0,
+    960960.0,
+    16380.0,
+    182.0,
+    1.0,
+)
+_THETA13 = 5.371920351148152
+
+
+def expm_batched(M: np.ndarray) -> np.ndarray:
+    """Matrix exponential of a stack of square matrices ``M [..., n, n]``.
+
+    Scaling and squaring with the [13/13] Pade approximant (Higham 2005,
+    see the module references), vectorised over the stack: one set of
+    matrix products for all matrices that need the same number of
+    squarings."""
+    M = np.asarray(M, dtype=float)
+    shape = M.shape
+    n = shape[-1]
+    X = M.reshape((-1, n, n))
+    out = np.empty_like(X)
+    if X.shape[0] == 0:
+        return out.reshape(shape)
+    norm = np.abs(X).sum(axis=-2).max(axis=-1)  # 1-norm
+    with np.errstate(divide="ignore"):
+        s = np.where(norm > _THETA13, np.ceil(np.log2(np.maximum(norm, 1e-300) / _THETA13)), 0.0).astype(int)
+    eye = np.eye(n)
+    b = _PADE13
+    for sv in np.unique(s):
+        idx = np.nonzero(s == sv)[0]
+        A = X[idx] / (2.0**sv)
+        A2 = A @ A
+        A4 = A2 @ A2
+        A6 = A4 @ A2
+        U = A @ (A6 @ (b[13] * A6 + b[11] * A4 + b[9] * A2) + b[7] * A6 + b[5] * A4 + b[3] * A2 + b[1] * eye)
+        V = A6 @ (b[12] * A6 + b[10] * A4 + b[8] * A2) + b[6] * A6 + b[4] * A4 + b[2] * A2 + b[0] * eye
+        R = np.linalg.solve(V - U, V + U)
+        for _ in range(int(sv)):
+            R = R @ R
+        out[idx] = R
+    return out.reshape(shape)
+
+
+def _expm_with_input(A, B, tau):
+    """(e^{A tau}, int_0^tau e^{A s} ds B) by one block exponential (Van Loan)."""
+    n, m = A.shape[-1], B.shape[-1]
+    tau = np.asarray(tau, dtype=float)[..., None, None]
+    batch = np.broadcast_shapes(A.shape[:-2], B.shape[:-2], tau.shape[:-2])
+    M = np.zeros(batch + (n + m, n + m))
+    M[..., :n, :n] = A * tau
+    M[..., :n, n:] = B * tau
+    E = expm_batched(M)
+    return E[..., :n, :n], E[..., :n, n:]
+
+
+def discretize_batched(A, B, C, Ts_s, delay: float):
+    """Exact ZOH model with computation delay, batched: the same model as
+    :func:`loopcheck.discretize.discretize_plant` (see there for the timing
+    and its references), computed with :func:`expm_batched`.
+
+    Returns ``(Ad, Bd, Cd)`` with state ``[x, u_prev]`` when delay > 0."""
+    A = np.asarray(A, dtype=float)
+    B = np.asarray(B, dtype=float)
+    C = np.asarray(C, dtype=float)
+    Ts = np.asarray(Ts_s, dtype=float)
+    n = A.shape[-1]
+    if delay == 0.0:
+        Phi, Gam = _expm_with_input(A, B, Ts)
+        batch = Phi.shape[:-2]
+        return Phi, Gam, np.broadcast_to(C, batch + C.shape[-2:]).copy()
+    E_new, G_new = _expm_with_input(A, B, (1.0 - delay) * Ts)
+    E_old, G_old0 = _expm_with_input(A, B, delay * Ts)
+    Phi = E_new @ E_old
+    G_old = E_new @ G_old0
+    batch = Phi.shape[:-2]
+    Ad = np.zeros(batch + (n + 1, n + 1))
+    Ad[..., :n, :n] = Phi
+    Ad[..., :n, n:] = G_old
+    Bd = np.zeros(batch + (n + 1, 1))
+    Bd[..., :n, :] = np.broadcast_to(G_new, batch + (n, 1))
+    Bd[..., n, 0] = 1.0
+    Cd = np.zeros(batch + (C.shape[-2], n + 1))
+    Cd[..., :, :n] = C
+    return Ad, Bd, Cd
+
+
+@dataclass(frozen=True, eq=False)
+class _Plants:
+    """Discrete plants with the damping loop open: Ad [..., n, n], Bd
+    [..., n, 1], rows of the regulated current and the capacitor current
+    (c_fb, c_ic [..., 1, n]), sampling period Ts [s]."""
+
+    Ad: np.ndarray
+    Bd: np.ndarray
+    c_fb: np.ndarray
+    c_ic: np.ndarray
+    Ts: np.ndarray
+
+
+def _plants(design: Design, prm: dict) -> _Plants:
+    f, g = design.filter, design.grid
+    d = f.damping
+    p = lcl_state_space(
+        prm["L1"], prm["C"], prm["L2"] + prm["Lg"], f.R1_ohm, f.R2_ohm + g.Rg_ohm,
+        d.kind, d.Rd_ohm, prm["Cd"], d.Ld_H,
+    )
+    Ts = 1.0 / prm["fs"]
+    Ad, Bd, Cd = discretize_batched(p.A, p.B, p.C, Ts, design.sampling.delay)
+    row = OUTPUT_I2 if design.control.feedback == "grid" else OUTPUT_I1
+    return _Plants(Ad, Bd, Cd[..., row : row + 1, :], Cd[..., OUTPUT_IC : OUTPUT_IC + 1, :], Ts)
+
+
+def _open_loops(design: Design, prm: dict, plants: _Plants | None = None):
+    """Batched ``(A_ol, B_ol, C_ol)`` of the loop broken at the controller
+    (damping loop closed), the same structure as :mod:`loopcheck.loop`."""
+    if plants is None:
+        plants = _plants(design, prm)
+    Hi = np.asarray(prm["Hi"], dtype=float)[..., None, None]
+    Ai = plants.Ad - Hi * (plants.Bd @ plants.c_ic)
+    blocks = controller_blocks(design.control, design.grid.f_hz, plants.Ts, Kp=prm["Kp"], Ki=prm["Ki"], Kr=prm["Kr"])
+    ctrl = parallel(blocks)
+    batch = np.broadcast_shapes(Ai.shape[:-2], ctrl.A.shape[:-2])
+    Ai = np.broadcast_to(Ai, batch + Ai.shape[-2:])
+    Bp = np.broadcast_to(plants.Bd, batch + plants.Bd.shape[-2:])
+    Cfb = np.broadcast_to(plants.c_fb, batch + plants.c_fb.shape[-2:])
+    return series_open_loop(Ai, Bp, Cfb, ctrl)
+
+
+def closed_loop_matrices(design: Design, values: dict) -> np.ndarray:
+    """Closed-loop state matrices ``[..., n, n]`` at map points (``values``
+    as in :func:`point_parameters`)."""
+    prm = point_parameters(design, values)
+    A, B, C = _open_loops(design, prm)
+    return A - B @ C
+
+
+def _radius(A: np.ndarray) -> np.ndarray:
+    """Spectral radius of a stack of matrices (batched eigenvalues)."""
+    if A.shape[0] == 0:
+        return np.zeros(0)
+    return np.abs(np.linalg.eigvals(A)).max(axis=-1)
+
+
+# ---------------------------------------------------------------------------
+# characteristic polynomials and exact crossings along a gain
+# ---------------------------------------------------------------------------
+
+
+def char_polys(A0: np.ndarray, A1: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Coefficients (ascending powers of z) of ``p(z; y) = det(zI - A0 - y A1)
+    = p0(z) + y p1(z)`` for stacks ``A0, A1 [m, n, n]`` with ``A1`` of rank
+    one. The determinant is evaluated at the n+1 roots of unity and turned
+    into coefficients by an FFT (exact interpolation of a degree-n
+    polynomial). Returns ``(p0, p1)``, each ``[m, n+1]``; p0 is monic and
+    p1 has degree < n."""
+    m, n = A0.shape[0], A0.shape[-1]
+    N = n + 1
+    zk = np.exp(2j * np.pi * np.arange(N) / N)
+    eye = np.eye(n)
+    Z = zk[None, :, None, None] * eye
+    v0 = np.linalg.det(Z - A0[:, None])
+    v1 = np.linalg.det(Z - (A0 + A1)[:, None])
+    c0 = (np.fft.fft(v0, axis=-1) / N).real
+    c1 = (np.fft.fft(v1, axis=-1) / N).real - c0
+    c0[:, n] = 1.0
+    c1[:, n] = 0.0
+    return c0, c1
+
+
+def _polyval_asc(c: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """Evaluate ascending-coefficient polynomials ``c [m, n+1]`` at ``z [m, k]``."""
+    out = np.zeros(z.shape, dtype=complex) + c[:, -1:]
+    for k in range(c.shape[1] - 2, -1, -1):
+        out = out * z + c[:, k : k + 1]
+    return out
+
+
+def _u_to_t(n: int) -> np.ndarray:
+    """Matrix M with ``sum_k d_k U_k = sum_j (M d)_j T_j`` (k, j = 0..n-1):
+    U_k = 2 (T_k + T_{k-2} + ...) ending in + T_0 for even k (Chebyshev
+    polynomials of the second and first kind, e.g. Mason & Handscomb,
+    "Chebyshev Polynomials", 2003, ch. 1; from memory)."""
+    M = np.zeros((n, n))
+    for k in range(n):
+        for j in range(k % 2, k + 1, 2):
+            M[j, k] = 2.0 if j > 0 else 1.0
+    return M
+
+
+def _cheb_real_roots(t: np.ndarray) -> list[np.ndarray]:
+    """Real roots in [-1, 1] of Chebyshev series ``t [m, D+1]`` (T_0..T_D),
+    one array per row; colleague-matrix eigenvalues, batched by degree."""
+    m = t.shape[0]
+    out: list[np.ndarray] = [np.zeros(0)] * m
+    scale = np.abs(t).max(axis=1)
+    big = np.abs(t) > 1e-13 * scale[:, None]
+    deg = np.where(big.any(axis=1), t.shape[1] - 1 - np.argmax(big[:, ::-1], axis=1), 0)
+    for D in np.unique(deg):
+        if D < 1:
+            continue
+        idx = np.nonzero(deg == D)[0]
+        c = t[idx, : D + 1]
+        if D == 1:
+            roots = (-c[:, 0] / c[:, 1])[:, None].astype(complex)
+        else:
+            mat = np.zeros((D, D))
+            off = np.full(D - 1, 0.5)
+            off[0] = math.sqrt(0.5)
+            mat[np.arange(D - 1), np.arange(1, D)] = off
+            mat[np.arange(1, D), np.arange(D - 1)] = off
+            scl = np.array([1.0] + [math.sqrt(0.5)] * (D - 1))
+            mats = np.broadcast_to(mat, (idx.size, D, D)).copy()
+            mats[:, :, -1] -= (c[:, :-1] / c[:, -1:]) * (scl / scl[-1]) * 0.5
+            roots = np.linalg.eigvals(mats)
+        ok = (np.abs(roots.imag) < 1e-6) & (np.abs(roots.real) <= 1.0 + 1e-9)
+        for r, i in enumerate(idx):
+            out[i] = np.clip(roots[r][ok[r]].real, -1.0, 1.0)
+    return out
+
+
+def crossing_gains(p0: np.ndarray, p1: np.ndarray) -> list[np.ndarray]:
+    """Every gain y at which ``p0 + y p1`` has a root on the unit circle,
+    per row (coefficients ascending, ``[m, n+1]``): z = 1, z = -1 and the
+    complex pairs ``e^{+-jw}`` where ``p0/p1`` is real (D-decomposition, see
+    the module docstring). Spurious extra values are harmless (each piece
+    between them is classified by eigenvalues); none is missed unless the
+    polynomial itself is inaccurate."""
+    m, n1 = p0.shape
+    n = n1 - 1
+    a, b = p0, p1
+    cands: list[list[float]] = [[] for _ in range(m)]
+    scale_b = np.abs(b).sum(axis=1)
+    for sign in (1.0, -1.0):
+        powers = sign ** np.arange(n1)
+        v0 = a @ powers
+        v1 = b @ powers
+        ok = np.abs(v1) > 1e-13 * np.maximum(scale_b, 1e-300)
+        for i in np.nonzero(ok)[0]:
+            cands[i].append(-v0[i] / v1[i])
+    # Im(p0 conj p1) on the circle = sum_m d_m sin(m w), m = 1..n
+    d = np.zeros((m, n))
+    for mm in range(1, n + 1):
+        d[:, mm - 1] = (a[:, mm:] * b[:, : n1 - mm]).sum(axis=1) - (a[:, : n1 - mm] * b[:, mm:]).sum(axis=1)
+    t = d @ _u_to_t(n).T
+    roots = _cheb_real_roots(t)
+    for i, x in enumerate(roots):
+        if x.size == 0:
+            continue
+        z = np.exp(1j * np.arccos(x))[None, :]
+        P0 = _polyval_asc(a[i : i + 1], z)[0]
+        P1 = _polyval_asc(b[i : i + 1], z)[0]
+        mag = np.abs(P1) ** 2
+        ok = mag > (1e-12 * scale_b[i]) ** 2
+        cands[i].extend((-(P0[ok] * np.conj(P1[ok])).real / mag[ok]).tolist())
+    return [np.array(c, dtype=float) for c in cands]
+
+
+# ---------------------------------------------------------------------------
+# intervals along a line
+# ---------------------------------------------------------------------------
+
+
+@dataclass
+class _LineIntervals:
+    """Verdict pieces of one line: boundaries (ascending) and whether the
+    piece below the first boundary is stable; method "exact" or "refined"."""
+
+    boundaries: np.ndarray
+    first_stable: bool
+    method: str
+
+    def intervals(self, lo: float, hi: float) -> tuple:
+        edges = [lo] + list(self.boundaries) + [hi]
+        out = []
+        s = self.first_stable
+        for a, b in zip(edges[:-1], edges[1:]):
+            if s:
+                out.append((float(a), float(b)))
+            s = not s
+        return tuple(out)
+
+    def flags(self, y: np.ndarray) -> np.ndarray:
+        below = np.searchsorted(self.boundaries, y, side="left")
+        on = np.isin(y, self.boundaries)
+        return (((below % 2) == 0) == self.first_stable) & ~on
+
+
+def _poly_radius(c: np.ndarray) -> np.ndarray:
+    """Largest root magnitude of ascending-coefficient monic polynomials
+    ``c [m, n+1]`` (companion-matrix eigenvalues)."""
+    return np.abs(_companion_roots(c)).max(axis=-1)
+
+
+def _companion_roots(c: np.ndarray) -> np.ndarray:
+    m, n1 = c.shape
+    n = n1 - 1
+    M = np.zeros((m, n, n))
+    M[:, 0, :] = -c[:, -2::-1] / c[:, -1:]
+    M[:, np.arange(1, n), np.arange(n - 1)] = 1.0
+    return np.linalg.eigvals(M)
+
+
+NEWTON_STEPS = 3
+
+
+def track_radius(p0: np.ndarray, p1: np.ndarray, y: np.ndarray, progress: ProgressFn | None = None) -> np.ndarray:
+    """Spectral radius of ``p0 + y_j p1`` for every line and every grid
+    value y_j (ascending), ``[len(y), m]``.
+
+    The roots are followed from one y to the next (linear extrapolation of
+    the last step as predictor, two Newton steps), then checked against
+    Newton's identities: the sum of the roots must equal minus the
+    next-to-leading coefficient and the sum of their squares c_{n-1}^2 -
+    2 c_{n-2} (monic polynomial), which fails when two roots have merged
+    into one. Lines failing the check, or whose last Newton correction is
+    not below 1e-9 (relative), are re-seeded from companion-matrix
+    eigenvalues at that y."""
+    m, n1 = p0.shape
+    n = n1 - 1
+    ny = y.size
+    out = np.empty((ny, m))
+    if n == 0:
+        out[:] = 0.0
+        return out
+    a = [p0[:, k : k + 1] for k in range(n1)]
+    b = [p1[:, k : k + 1] for k in range(n1)]
+    r = _companion_roots(p0 + y[0] * p1).astype(complex)
+    out[0] = np.abs(r).max(axis=1)
+    vel = np.zeros_like(r)
+    p = np.empty_like(r)
+    dp = np.empty_like(r)
+    tmp = np.empty_like(r)
+    h_prev = 1.0
+    step = max(1, ny // 50)
+    with np.errstate(all="ignore"):
+        for j in range(1, ny):
+            yy = y[j]
+            h = yy - y[j - 1]
+            c = [a[k] + yy * b[k] for k in range(n1)]
+            r_old = r.copy()
+            if j > 1:
+                r += vel * (h / h_prev)
+            for _ in range(NEWTON_STEPS):
+                p.fill(1.0)
+                dp.fill(0.0)
+                for k in range(n - 1, -1, -1):
+                    dp *= r
+                    dp += p
+                    p *= r
+                    p += c[k]
+                np.divide(p, dp, out=tmp)
+                r -= tmp
+            np.subtract(r, r_old, out=vel)
+            h_prev = h
+            absr = np.abs(r)
+            mag = absr.sum(axis=1)
+            e1 = c[n - 1][:, 0]
+            e2 = c[n - 2][:, 0] if n >= 2 else 0.0
+            ok = (np.abs(tmp) <= 1e-9 * (1.0 + absr)).all(axis=1)
+            ok &= np.abs(r.sum(axis=1) + e1) <= 1e-8 * (1.0 + mag)
+            ok &= np.abs((r * r).sum(axis=1) - (e1 * e1 - 2.0 * e2)) <= 1e-8 * (1.0 + mag * mag)
+            if not ok.all():
+                k = np.nonzero(~ok)[0]
+                r[k] = _companion_roots(p0[k] + yy * p1[k])
+                vel[k] = 0.0
+                absr[k] = np.abs(r[k])
+            absr.max(axis=1, out=out[j])
+            if progress is not None and j % step == 0:
+                progress(step / ny)
+    return out
+
+
+def _bisect(evaluate, line, a, b, sa, span: float, rel_tol: float = 1e-10):
+    """Vectorised bisection: ``evaluate(line, y) -> stable`` with
+    ``evaluate(line, a) == sa != evaluate(line, b)``; returns the crossing
+    of each bracket to ``rel_tol * span``."""
+    a = np.array(a, dtype=float)
+    b = np.array(b, dtype=float)
+    if a.size == 0:
+        return a
+    width = float(np.max(np.abs(b - a)))
+    iters = max(1, int(math.ceil(math.log2(max(width, 1e-300) / (rel_tol * span)))) + 1) if width > 0 else 0
+    for _ in range(iters):
+        mid = 0.5 * (a + b)
+        same = evaluate(line, mid) == sa
+        a = np.where(same, mid, a)
+        b = np.where(same, b, mid)
+    return 0.5 * (a + b)
+
+
+def _exact_lines(A0, A1, p0, p1, lo: float, hi: float, tol: float):
+    """Stable intervals along ``A0 + y A1`` for y in [lo, hi], per line, by
+    D-decomposition (candidates from :func:`crossing_gains`, pieces
+    classified by state-space eigenvalues, verdict-changing boundaries
+    verified beside them or located by eigenvalue bisection).
+
+    Returns the intervals and, per line, whether the polynomial's roots
+    disagreed with the state-space eigenvalues (the caller then recomputes
+    that line's radius point by point)."""
+    m = A0.shape[0]
+    cands = crossing_gains(p0, p1)
+    span = hi - lo
+    edges = []
+    for c in cands:
+        c = np.unique(c[(c > lo) & (c < hi)])
+        edges.append(np.concatenate([[lo], c, [hi]]))
+    counts = np.array([e.size - 1 for e in edges])
+    line = np.repeat(np.arange(m), counts)
+    left = np.concatenate([e[:-1] for e in edges])
+    right = np.concatenate([e[1:] for e in edges])
+    mid = 0.5 * (left + right)
+
+    def evaluate(li, y):
+        return _radius(A0[li] + np.asarray(y)[:, None, None] * A1[li]) < 1.0 - tol
+
+    rad_mid = _radius(A0[line] + mid[:, None, None] * A1[line])
+    st = rad_mid < 1.0 - tol
+    pr = _poly_radius(p0[line] + mid[:, None] * p1[line])
+    suspect = np.zeros(m, dtype=bool)
+    suspect[line[np.abs(pr - rad_mid) > 1e-9 * np.maximum(1.0, rad_mid)]] = True
+    change = np.nonzero((line[:-1] == line[1:]) & (st[:-1] != st[1:]))[0]
+    c = right[change].copy()
+    li = line[change]
+    dl = np.minimum(2e-6 * span, 0.5 * (c - left[change]))
+    dr = np.minimum(2e-6 * span, 0.5 * (right[change + 1] - c))
+    ok = (evaluate(li, c - dl) == st[change]) & (evaluate(li, c + dr) == st[change + 1])
+    if not ok.all():
+        k = np.nonzero(~ok)[0]
+        c[k] = _bisect(evaluate, li[k], mid[change[k]], mid[change[k] + 1], st[change[k]], span)
+    first = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    order = np.argsort(li, kind="stable")
+    split = np.searchsorted(li[order], np.arange(m + 1))
+    out = []
+    for i in range(m):
+        b = np.sort(c[order[split[i] : split[i + 1]]])
+        out.append(_LineIntervals(b, bool(st[first[i]]), "exact"))
+    return out, suspect
+
+
+def _refined_lines(evaluate, stable, y, span: float) -> list[_LineIntervals]:
+    """Intervals of lines from grid verdicts ``stable [ny, m]`` plus
+    bisection (``evaluate(line, y) -> stable``) between grid values where
+    the verdict changes; all brackets of all lines are bisected together."""
+    jj, ii = np.nonzero(stable[:-1] != stable[1:])
+    b = _bisect(evaluate, ii, y[jj], y[jj + 1], stable[jj, ii], span)
+    order = np.argsort(ii, kind="stable")
+    split = np.searchsorted(ii[order], np.arange(stable.shape[1] + 1))
+    return [
+        _LineIntervals(np.sort(b[order[split[i] : split[i + 1]]]), bool(stable[0, i]), "refined")
+        for i in range(stable.shape[1])
+    ]
+
+
+def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
+    """Stability along lines ``A(y) = A0 + y A1`` (``A0, A1 [m, n, n]``, A1 of
+    rank one; y ascending grid of the gain).
+
+    Returns ``(lines, radius)``: per line a :class:`_LineIntervals` with the
+    exact boundaries (D-decomposition, see the module docstring) over
+    [y[0], y[-1]], and the spectral radius ``[len(y), m]``. Lines where the
+    polynomial route proves unreliable get their radius from state-space
+    eigenvalues at every grid value, and their boundaries from bisection
+    if the exact ones contradict those eigenvalues."""
+    lo, hi = float(y[0]), float(y[-1])
+    p0, p1 = char_polys(A0, A1)
+    lines, suspect = _exact_lines(A0, A1, p0, p1, lo, hi, tol)
+    radius = track_radius(p0, p1, y, progress)
+    flags = np.stack([ln.flags(y) for ln in lines], axis=1)
+    suspect |= ((flags != (radius < 1.0 - tol)) & (np.abs(radius - 1.0) > 1e-7)).any(axis=0)
+    if suspect.any():
+        k = np.nonzero(suspect)[0]
+        for i in k:
+            radius[:, i] = _radius(A0[i][None] + y[:, None, None] * A1[i][None])
+
+        def evaluate(li, yy):
+            return _radius(A0[li] + np.asarray(yy)[:, None, None] * A1[li]) < 1.0 - tol
+
+        eig_stable = radius[:, k] < 1.0 - tol
+        wrong = ((flags[:, k] != eig_stable) & (np.abs(radius[:, k] - 1.0) > 1e-7)).any(axis=0)
+        if wrong.any():
+            kw = k[wrong]
+            redo = _refined_lines(lambda li, yy: evaluate(kw[li], yy), radius[:, kw] < 1.0 - tol, y, hi - lo)
+            for i, ln in zip(kw, redo):
+                lines[i] = ln
+    return lines, radius
+
+
+# ---------------------------------------------------------------------------
+# the map
+# ---------------------------------------------------------------------------
+
+#: Points per chunk when every grid point needs its own model.
+_CHUNK = 4096
+
+
+def _line_matrices(design: Design, fixed: dict, gain: str, y_ref: float):
+    """``A0, A1`` with ``A(y) = A0 + y*A1`` along the gain ``gain`` for the
+    parameter arrays ``fixed`` (one entry per line)."""
+    A0 = closed_loop_matrices(design, {**fixed, gain: 0.0})
+    A1 = (closed_loop_matrices(design, {**fixed, gain: y_ref}) - A0) / y_ref
+    return A0, A1
+
+
+def _y_ref(values: np.ndarray) -> float:
+    r = float(np.max(np.abs(values)))
+    return r if r > 0 else 1.0
+
+
+def _pointwise_radius(design: Design, xname, xv, yname, yv, progress: ProgressFn | None):
+    """Spectral radius at every grid point ``[ny, nx]`` (state-space
+    eigenvalues, chunked)."""
+    X, Y = np.meshgrid(xv, yv)
+    xs, ys = X.ravel(), Y.ravel()
+    out = np.empty(xs.size)
+    n_chunks = max(1, math.ceil(xs.size / _CHUNK))
+    for s in range(0, xs.size, _CHUNK):
+        sl = slice(s, s + _CHUNK)
+        out[sl] = _radius(closed_loop_matrices(design, {xname: xs[sl], yname: ys[sl]}))
+        if progress is not None:
+            progress(1.0 / n_chunks)
+    return out.reshape(X.shape)
+
+
+def _physical_evaluator(design: Design, xname, xv, yname, tol):
+    def evaluate(li, yy):
+        yy = np.asarray(yy, dtype=float)
+        out = np.empty(yy.size, dtype=bool)
+        for s in range(0, yy.size, _CHUNK):
+            sl = slice(s, s + _CHUNK)
+            A = closed_loop_matrices(design, {xname: xv[li[sl]], yname: yy[sl]})
+            out[sl] = _radius(A) < 1.0 - tol
+        return out
+
+    return evaluate
+
+
+def _column_lines(design: Design, spec: MapSpec, xv, yv, tol, progress):
+    """Stable y intervals per x value plus the grid verdict and radius
+    ``[ny, nx]`` for any pair of axes."""
+    xname, yname = spec.x.name, spec.y.name
+    span = float(yv[-1] - yv[0])
+    if spec.y.is_gain:
+        A0, A1 = _line_matrices(design, {xname: xv}, yname, _y_ref(yv))
+        lines, radius = gain_lines(A0, A1, yv, tol, progress)
+        stable = np.stack([ln.flags(yv) for ln in lines], axis=1)
+        return lines, stable, radius
+    if spec.x.is_gain:
+        A0, A1 = _line_matrices(design, {yname: yv}, xname, _y_ref(xv))
+        rows, radius_t = gain_lines(A0, A1, xv, tol, progress)
+        stable = np.stack([ln.flags(xv) for ln in rows], axis=0)
+        radius = radius_t.T
+    else:
+        radius = _pointwise_radius(design, xname, xv, yname, yv, progress)
+        stable = radius < 1.0 - tol
+    evaluate = _physical_evaluator(design, xname, xv, yname, tol)
+    lines = _refined_lines(evaluate, stable, yv, span)
+    return lines, stable, radius
+
+
+def _design_interval(design: Design, spec: MapSpec, x0: float, y0: float, tol: float):
+    """Verdict at the design point and the stable y interval through it at
+    x = x0 (over the y range widened to include y0)."""
+    xname, yname = spec.x.name, spec.y.name
+    A = closed_loop_matrices(design, {xname: np.array([x0]), yname: np.array([y0])})
+    stable = bool(_radius(A)[0] < 1.0 - tol)
+    lo = min(spec.y.start, y0)
+    hi = max(spec.y.stop, y0)
+    if spec.y.is_gain:
+        A0, A1 = _line_matrices(design, {xname: np.array([x0])}, yname, _y_ref(np.array([lo, hi])))
+        p0, p1 = char_polys(A0, A1)
+        line = _exact_lines(A0, A1, p0, p1, lo, hi, tol)[0][0]
+    else:
+        yy = np.geomspace(lo, hi, 2 * spec.y.points) if spec.y.log else np.linspace(lo, hi, 2 * spec.y.points)
+        A = closed_loop_matrices(design, {xname: np.full(yy.size, x0), yname: yy})
+        st = (_radius(A) < 1.0 - tol)[:, None]
+        ev = _physical_evaluator(design, xname, np.array([x0]), yname, tol)
+        line = _refined_lines(ev, st, yy, hi - lo)[0]
+    if not stable:
+        return stable, None
+    for a, b in line.intervals(lo, hi):
+        if a <= y0 <= b:
+            return stable, (a, b)
+    return stable, None
+
+
+def _varying_parameters(design: Design, spec: MapSpec, xv, yv) -> dict:
+    X, Y = np.meshgrid(xv, yv)
+    prm = point_parameters(design, {spec.x.name: X, spec.y.name: Y})
+    out = {}
+    for k in ("fs", "C", "Cd", "L1", "L2", "Lg", "Kp", "Hi", "Kr", "Ki"):
+        v = prm[k]
+        if v.size and np.ptp(v) > 0:
+            out[k] = v
+    for ax, grid in ((spec.x, X), (spec.y, Y)):
+        if ax.name == "fr/fs":
+            out["fr/fs"] = grid
+        elif ax.name not in out:
+            out[ax.name] = grid
+    return out
+
+
+def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress: ProgressFn | None = None) -> StabilityMap:
+    """Compute the stability map of ``design`` over ``spec``.
+
+    ``progress(fraction)`` is called with increments that add up to about
+    1 (for a progress bar); nothing is printed. See the module docstring
+    for the method."""
+    check_axes(spec.x.name, spec.y.name)
+    for m in spec.metrics:
+        if m not in METRICS:
+            raise ValueError(f"unknown metric {m!r}; known: {', '.join(METRICS)}")
+    xv, yv = spec.x.values(), spec.y.values()
+    share = 0.5 if spec.metrics else 1.0
+    prog = None if progress is None else (lambda f: progress(share * f))
+    lines, stable, radius = _column_lines(design, spec, xv, yv, tol, prog)
+    x0 = design_value(design, spec.x.name)
+    y0 = design_value(design, spec.y.name)
+    d_stable, d_interval = _design_interval(design, spec, x0, y0, tol)
+    s = design.sampling
+    metrics = {}
+    if spec.metrics:
+        prog2 = None if progress is None else (lambda f: progress((1.0 - share) * f))
+        metrics = grid_margins(design, spec, xv, yv, stable, prog2)
+    lo, hi = float(yv[0]), float(yv[-1])
+    return StabilityMap(
+        name=design.name,
+        x=spec.x,
+        y=spec.y,
+        x_values=xv,
+        y_values=yv,
+        stable=stable,
+        spectral_radius=radius,
+        intervals=tuple(ln.intervals(lo, hi) for ln in lines),
+        boundaries=tuple(tuple(float(b) for b in ln.boundaries) for ln in lines),
+        boundary_method=tuple(ln.method for ln in lines),
+        parameters=_varying_parameters(design, spec, xv, yv),
+        design_x=float(x0),
+        design_y=float(y0),
+        design_stable=d_stable,
+        design_interval=d_interval,
+        critical_ratio=1.0 / (4.0 * s.delay + 2.0),
+        delay=s.delay,
+        fs_hz=s.fs_hz,
+        L1_H=design.filter.L1_H,
+        Lg_H=design.grid.Lg_H,
+        Lg_range_H=design.grid.Lg_range_H,
+        tolerance=tol,
+        **metrics,
+    )
+
+
+# ---------------------------------------------------------------------------
+# margins per grid point
+# ---------------------------------------------------------------------------
+
+#: Points per chunk in the margin computation (bounds memory: chunk x ~1600
+#: frequencies of complex numbers per array).
+_MARGIN_CHUNK = 800
+#: Base frequency grid [rad/sample]: log-spaced part and linear part.
+_N_LOG, _N_LIN = 500, 1000
+#: Relative offsets of the extra frequencies around open-loop poles near the
+#: unit circle (resonances, resonators).
+_CLUSTER = np.geomspace(1e-7, 3e-2, 14)
+
+
+class _LoopData:
+    """Factored loop gain ``L(z) = Gc(z) * Gfb(z) / (1 + Hi * Gic(z))`` for a
+    set of map points: plant responses in modal form per unique plant,
+    controller as ``Kp + g * U(z)`` with the unit response U of the
+    integrator or the resonators per unique sampling period (g = Ki or Kr).
+    Nothing is multiplied out into a polynomial."""
+
+    def __init__(self, design: Design, prm: dict):
+        self.design = design
+        keys = np.stack([prm[k] for k in ("L1", "C", "Cd", "L2", "Lg", "fs")], axis=1)
+        ukeys, self.pidx = np.unique(keys, axis=0, return_inverse=True)
+        self.pidx = self.pidx.ravel()
+        uprm = {k: ukeys[:, i] for i, k in enumerate(("L1", "C", "Cd", "L2", "Lg", "fs"))}
+        pl = _plants(design, uprm)
+        self.plants = pl
+        lam, V = np.linalg.eig(pl.Ad)
+        with np.errstate(all="ignore"):
+            cond = np.linalg.cond(V)
+        self.direct = ~(cond < 1e10)
+        Vinv = np.linalg.inv(np.where(self.direct[:, None, None], np.eye(V.shape[-1]), V))
+        wb = (Vinv @ pl.Bd)[..., 0]
+        self.lam = lam
+        self.r_fb = (pl.c_fb @ V)[:, 0, :] * wb
+        self.r_ic = (pl.c_ic @ V)[:, 0, :] * wb
+        self.Kp = prm["Kp"]
+        self.Hi = prm["Hi"]
+        kind = design.control.kind
+        self.g = prm["Kr"] if kind == "PR" else (prm["Ki"] if kind == "PI" else np.zeros_like(self.Kp))
+        ufs, self.tidx = np.unique(prm["fs"], return_inverse=True)
+        self.tidx = self.tidx.ravel()
+        self.Ts_u = 1.0 / ufs
+        self.Ts = 1.0 / prm["fs"]
+        blocks = controller_blocks(design.control, design.grid.f_hz, self.Ts_u, Kp=0.0, Ki=1.0, Kr=1.0)
+        self.blocks = [b for b in blocks[1:]]
+        # controller poles (resonators, integrator) for the frequency clusters
+        self.ctrl_angles = [np.abs(np.angle(np.linalg.eigvals(b.A))) for b in self.blocks if b.order > 0]
+
+    def plant(self, pi, z, which: str):
+        """Plant response at points ``pi [S]`` and ``z [S, F]``."""
+        u = self.pidx[pi]
+        res = self.r_fb if which == "fb" else self.r_ic
+        lam = self.lam[u]
+        r = res[u]
+        out = np.zeros(z.shape, dtype=complex)
+        with np.errstate(all="ignore"):
+            for k in range(lam.shape[1]):
+                out += r[:, k : k + 1] / (z - lam[:, k : k + 1])
+            bad = self.direct[u]
+            if bad.any():
+                c = self.plants.c_fb if which == "fb" else self.plants.c_ic
+                ub = u[bad]
+                n = self.plants.Ad.shape[-1]
+                M = z[bad][..., None, None] * np.eye(n) - self.plants.Ad[ub][:, None]
+                x = np.linalg.solve(M, np.broadcast_to(self.plants.Bd[ub][:, None], M.shape[:-1] + (1,)))
+                out[bad] = (c[ub][:, None] @ x)[..., 0, 0]
+        return out
+
+    def unit_controller(self, pi, z):
+        """U(z) at points ``pi [S]``, ``z [S, F]`` (zero for a P controller)."""
+        t = self.tidx[pi]
+        out = np.zeros(z.shape, dtype=complex)
+        with np.errstate(all="ignore"):
+            for b in self.blocks:
+                A, B, C, D = b.A[t], b.B[t], b.C[t], b.D[t]
+                if b.order == 1:
+                    out += (C[:, 0, 0] * B[:, 0, 0])[:, None] / (z - A[:, 0, 0][:, None]) + D[:, 0, 0][:, None]
+                elif b.order == 2:
+                    a11, a12, a21, a22 = (A[:, i, j][:, None] for i, j in ((0, 0), (0, 1), (1, 0), (1, 1)))
+                    b1, b2 = B[:, 0, 0][:, None], B[:, 1, 0][:, None]
+                    c1, c2 = C[:, 0, 0][:, None], C[:, 0, 1][:, None]
+                    det = (z - a11) * (z - a22) - a12 * a21
+                    x1 = (z - a22) * b1 + a12 * b2
+                    x2 = a21 * b1 + (z - a11) * b2
+                    out += (c1 * x1 + c2 * x2) / det + D[:, 0, 0][:, None]
+                else:
+                    out += D[:, 0, 0][:, None]
+        return out
+
+    def loop(self, pi, z):
+        """L(z) at points ``pi [S]`` and ``z [S, F]``."""
+        gc = self.Kp[pi][:, None] + self.g[pi][:, None] * self.unit_controller(pi, z)
+        with np.errstate(all="ignore"):
+            return gc * self.plant(pi, z, "fb") / (1.0 + self.Hi[pi][:, None] * self.plant(pi, z, "ic"))
+
+    def loop_grid(self, pi, w: np.ndarray) -> np.ndarray:
+        """L at points ``pi [S]`` on one shared frequency grid ``w [F]``
+        [rad/sample], ``[S, F]``: plant and controller responses are
+        evaluated once per unique plant and sampling period, then combined."""
+        z = np.exp(1j * w)[None, :]
+        up, inv_p = np.unique(self.pidx[pi], return_inverse=True)
+        ut, inv_t = np.unique(self.tidx[pi], return_inverse=True)
+        rep_p = np.array([pi[np.argmax(self.pidx[pi] == u)] for u in up])
+        rep_t = np.array([pi[np.argmax(self.tidx[pi] == u)] for u in ut])
+        zp = np.broadcast_to(z, (up.size, w.size))
+        gfb = self.plant(rep_p, zp, "fb")[inv_p.ravel()]
+        gic = self.plant(rep_p, zp, "ic")[inv_p.ravel()]
+        unit = self.unit_controller(rep_t, np.broadcast_to(z, (ut.size, w.size)))[inv_t.ravel()]
+        gc = self.Kp[pi][:, None] + self.g[pi][:, None] * unit
+        with np.errstate(all="ignore"):
+            return gc * gfb / (1.0 + self.Hi[pi][:, None] * gic)
+
+    def special_angles(self, pi) -> np.ndarray:
+        """Angles [rad/sample] of open-loop poles near the unit circle per
+        point ``[S, K]`` (NaN-padded): the damping loop's poles and the
+        controller's."""
+        u = self.pidx[pi]
+        pl = self.plants
+        Ai = pl.Ad[u] - self.Hi[pi][:, None, None] * (pl.Bd[u] @ pl.c_ic[u])
+        p = np.linalg.eigvals(Ai)
+        keep = (np.abs(p) > 0.8) & (p.imag > 1e-12)
+        ang = np.where(keep, np.abs(np.angle(p)), np.nan)
+        parts = [ang]
+        for ca in self.ctrl_angles:
+            parts.append(np.where(ca[self.tidx[pi]] > 1e-12, ca[self.tidx[pi]], np.nan))
+        return np.concatenate(parts, axis=1)
+
+
+def _base_grid(fs_max: float) -> np.ndarray:
+    w_lo = 2.0 * math.pi * 0.5 / fs_max
+    return np.unique(np.concatenate([np.geomspace(w_lo, math.pi, _N_LOG), np.linspace(0.0, math.pi, _N_LIN + 1)[1:]]))
+
+
+def _illinois(f, pts, a, b, fa, fb, iters: int = 40, xtol: float = 1e-13):
+    """Vectorised regula falsi (Illinois variant) for sign changes of
+    ``f(pts, w)`` in [a, b]; returns the roots."""
+    a, b, fa, fb = (np.array(v, dtype=float) for v in (a, b, fa, fb))
+    for _ in range(iters):
+        if a.size == 0:
+            break
+        with np.errstate(all="ignore"):
+            c = b - fb * (b - a) / (fb - fa)
+        bad = ~np.isfinite(c) | (c <= np.minimum(a, b)) | (c >= np.maximum(a, b))
+        c = np.where(bad, 0.5 * (a + b), c)
+        fc = f(pts, c)
+        same = np.sign(fc) == np.sign(fb)
+        # fc on the side of b: keep a, halve fa (Illinois); else a <- b
+        fa = np.where(same, 0.5 * fa, fb)
+        a = np.where(same, a, b)
+        b, fb = c, fc
+        if np.all((np.abs(b - a) <= xtol * np.maximum(1.0, np.abs(b))) | (fc == 0)):
+            break
+    return b
+
+
+def _wrap_deg(x):
+    y = (x + 180.0) % 360.0 - 180.0
+    return np.where(y == -180.0, 180.0, y)
+
+
+def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
+    """Margins of the points ``pi``: phase margin [deg], gain-margin factors
+    (lower, upper), sensitivity peak and its angle [rad/sample]."""
+    S = pi.size
+    Lb = data.loop_grid(pi, w_base)
+    ang = data.special_angles(pi)
+    wc = (ang[:, :, None] * np.concatenate([1.0 - _CLUSTER[::-1], 1.0 + _CLUSTER])[None, None, :]).reshape(S, -1)
+    wc = np.where(np.isfinite(wc) & (wc > 0) & (wc < math.pi), wc, math.pi)
+    Lc = data.loop(pi, np.exp(1j * wc))
+    w = np.concatenate([np.broadcast_to(w_base, (S, w_base.size)), wc], axis=1)
+    L = np.concatenate([Lb, Lc], axis=1)
+    order = np.argsort(w, axis=1, kind="stable")
+    w = np.take_along_axis(w, order, axis=1)
+    L = np.take_along_axis(L, order, axis=1)
+    rows = np.arange(S)
+
+    def L1(p, x):
+        return data.loop(pi[p], np.exp(1j * np.asarray(x))[:, None])[:, 0]
+
+    with np.errstate(all="ignore"):
+        absL = np.abs(L)
+        # gain crossovers |L| = 1 and the phase margin there
+        g = np.log(absL)
+        fin = np.isfinite(g)
+        ii, jj = np.nonzero((np.sign(g[:, :-1]) * np.sign(g[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+        wx = _illinois(lambda p, x: np.log(np.abs(L1(p, x))), ii, w[ii, jj], w[ii, jj + 1], g[ii, jj], g[ii, jj + 1])
+        v = L1(ii, wx)
+        pm = np.abs(_wrap_deg(180.0 + np.degrees(np.angle(v))))
+        pm_min = np.full(S, np.inf)
+        np.minimum.at(pm_min, ii, pm)
+        pm_min[~np.isfinite(pm_min)] = np.nan
+        # real-axis crossings with L < 0: controller factors k = -1/L
+        h = L.imag / absL
+        fin = np.isfinite(h)
+        ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+
+        def fh(p, x):
+            val = L1(p, x)
+            return val.imag / np.abs(val)
+
+        wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+        v = L1(ii, wr)
+        real = np.isfinite(v) & (np.abs(v.imag) <= 1e-7 * np.abs(v)) & (v.real < 0)
+        k_pt = [ii[real]]
+        k_val = [-1.0 / v.real[real]]
+        for z0, lim in ((-1.0, np.inf), (1.0, 1e12)):
+            v0 = L1(rows, np.full(S, math.acos(z0)))
+            ok = np.isfinite(v0) & (np.abs(v0) < lim) & (np.abs(v0) > 0) & (v0.real < 0)
+            k_pt.append(rows[ok])
+            k_val.append(-1.0 / v0.real[ok])
+        kp = np.concatenate(k_pt)
+        kv = np.concatenate(k_val)
+        lower = np.zeros(S)
+        upper = np.full(S, np.inf)
+        below = kv < 1.0
+        np.maximum.at(lower, kp[below], kv[below])
+        np.minimum.at(upper, kp[~below], kv[~below])
+        # sensitivity peak, refined by golden-section search around the grid maximum
+        Sv = np.abs(1.0 / (1.0 + L))
+        Sv[~np.isfinite(Sv)] = 0.0
+        j = np.argmax(Sv, axis=1)
+        lo = w[rows, np.maximum(j - 1, 0)]
+        hi = w[rows, np.minimum(j + 1, w.shape[1] - 1)]
+        best_w = w[rows, j]
+        best = Sv[rows, j]
+        gr = (math.sqrt(5.0) - 1.0) / 2.0
+        a, b = lo.copy(), hi.copy()
+        c = b - gr * (b - a)
+        d = a + gr * (b - a)
+
+        def fs_(x):
+            val = np.abs(1.0 / (1.0 + L1(rows, x)))
+            return np.where(np.isfinite(val), val, 0.0)
+
+        fc, fd = fs_(c), fs_(d)
+        for _ in range(40):
+            left = fc > fd  # the maximum lies in [a, d]
+            a, b = np.where(left, a, c), np.where(left, d, b)
+            x = np.where(left, b - gr * (b - a), a + gr * (b - a))
+            fx = fs_(x)
+            c, d, fc, fd = (
+                np.where(left, x, d),
+                np.where(left, c, x),
+                np.where(left, fx, fd),
+                np.where(left, fc, fx),
+            )
+        xm = 0.5 * (a + b)
+        fm = fs_(xm)
+        take = fm > best
+        best = np.where(take, fm, best)
+        best_w = np.where(take, xm, best_w)
+    return pm_min, lower, upper, best, best_w
+
+
+def grid_margins(design: Design, spec: MapSpec, xv, yv, stable, progress: ProgressFn | None = None) -> dict:
+    """Phase margin, gain-margin interval and sensitivity peak at every
+    stable grid point (NaN elsewhere), vectorised.
+
+    The loop is broken at the current controller with the damping loop
+    closed, as in :func:`loopcheck.analysis.analyse`: crossovers |L| = 1 and
+    real-axis crossings of L are bracketed on a shared frequency grid plus
+    frequencies clustered around the open-loop poles near the unit circle,
+    then refined by regula falsi; the phase margin is the smallest
+    |180 deg + phase| over the crossovers; the gain-margin interval is
+    bounded by the nearest controller factors k = -1/L (L real, negative,
+    the Nyquist frequency and a finite L(1) included) below and above 1;
+    the sensitivity peak is max |1/(1+L)|, refined by golden-section search.
+    Returns arrays ``[ny, nx]`` keyed like the :class:`StabilityMap`
+    fields."""
+    X, Y = np.meshgrid(xv, yv)
+    shape = X.shape
+    keys = ("phase_margin_deg", "gain_margin_lower", "gain_margin_upper", "sensitivity_peak", "sensitivity_peak_hz")
+    out = {k: np.full(shape, np.nan) for k in keys}
+    idx = np.flatnonzero(stable)
+    if idx.size == 0:
+        if progress is not None:
+            progress(1.0)
+        return {k: out[k] for k in keys if _metric_of(k) in spec.metrics}
+    prm = point_parameters(design, {spec.x.name: X.ravel()[idx], spec.y.name: Y.ravel()[idx]})
+    data = _LoopData(design, prm)
+    w_base = _base_grid(float(np.max(prm["fs"])))
+    res = [np.empty(idx.size) for _ in range(5)]
+    n_chunks = max(1, math.ceil(idx.size / _MARGIN_CHUNK))
+    for s in range(0, idx.size, _MARGIN_CHUNK):
+        pi = np.arange(s, min(s + _MARGIN_CHUNK, idx.size))
+        pm, lo, hi, sp, spw = _margins_chunk(data, pi, w_base)
+        res[0][pi], res[1][pi], res[2][pi], res[3][pi] = pm, lo, hi, sp
+        res[4][pi] = spw / (2.0 * math.pi * data.Ts[pi])
+        if progress is not None:
+            progress(1.0 / n_chunks)
+    for k, r in zip(keys, res):
+        flat = out[k].ravel()
+        flat[idx] = r
+        out[k] = flat.reshape(shape)
+    return {k: out[k] for k in keys if _metric_of(k) in spec.metrics}
+
+
+def _metric_of(key: str) -> str:
+    if key.startswith("phase"):
+        return "phase-margin"
+    if key.startswith("gain"):
+        return "gain-margin"
+    return "sensitivity"
