@@ -67,6 +67,12 @@ app.command("simulate")(cmd_simulate.simulate)
 from loopcheck import cmd_harmonics  # noqa: E402
 
 app.command("harmonics")(cmd_harmonics.harmonics)
+from loopcheck import cmd_grid  # noqa: E402
+
+app.command("grid")(cmd_grid.grid)
+from loopcheck import cmd_pick  # noqa: E402
+
+app.command("pick")(cmd_pick.pick)
 from loopcheck import cmd_map  # noqa: E402
 
 app.command("map")(cmd_map.map_command)
