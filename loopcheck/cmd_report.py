@@ -57,7 +57,10 @@ def report(
             if message.startswith("section ") or message == "analysis":
                 advance(1)
 
-        result = build_report(loaded, options, progress=step)
+        try:
+            result = build_report(loaded, options, progress=step)
+        except CaseError as exc:  # bad input in an optional table ([pwm], [scenario], [firmware], ...)
+            fail(str(exc))
     try:
         atomic_write_text(out, result.html)
     except OSError as exc:

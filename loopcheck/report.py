@@ -79,14 +79,12 @@ class ReportOptions:
     title: report title (default from the case name);
     prepared_by: free text for the header (empty: not shown);
     map_points: stability-map resolution (points along x, along y) [-];
-    figure_dpi: resolution of the embedded PNG figures [dots per inch];
-    simulation_periods: length of simulated waveforms [fundamental periods]."""
+    figure_dpi: resolution of the embedded PNG figures [dots per inch]."""
 
     title: str = ""
     prepared_by: str = ""
     map_points: tuple[int, int] = (120, 90)
     figure_dpi: int = 110
-    simulation_periods: float = 6.0
 
 
 @dataclass(frozen=True)
@@ -468,28 +466,212 @@ def build_weak_grid(ctx: ReportContext) -> Section:
     )
 
 
+def _firmware_html(ctx: ReportContext) -> str:
+    """The exported controller: difference-equation coefficients and the re-check."""
+    from loopcheck.casefile import CaseError
+    from loopcheck.firmware import FirmwareFormatError, FirmwareSettings, export_controller, read_firmware_settings
+
+    case = ctx.case
+    settings = FirmwareSettings()
+    notes: list[str] = []
+    tables = getattr(case, "tables", {}) or {}
+    if "firmware" in tables:
+        settings, notes = read_firmware_settings(
+            tables["firmware"], case.where("firmware"), damping_gain_used=ctx.design.control.Hi_V_per_A != 0.0
+        )
+    try:
+        ex = export_controller(ctx.design, settings)
+    except FirmwareFormatError as exc:  # the [firmware] number format cannot hold a coefficient: bad input
+        raise CaseError(f"{case.where('firmware')} {exc.key}: {exc}") from None
+    out = [
+        "<p>The controller as the firmware runs it, per sampling period Ts = "
+        f"{e(q(ex.Ts_s, 's'))}: each section j computes "
+        "<code>y_j[k] = b0 e[k] + b1 e[k-1] + b2 e[k-2] - a1 y_j[k-1] - a2 y_j[k-2]</code>, "
+        "then <code>u[k] = Kp e[k] + sum_j y_j[k] - Hi ic[k]</code> (direct form I, histories start at 0; "
+        "the full conventions and the C header come from <code>loopcheck export</code>).</p>"
+    ]
+    for coeffs, label in ((ex.si, "SI"), (ex.firmware, "firmware units")):
+        if coeffs is None:
+            continue
+        unit = coeffs.gain_unit
+        rows = [["Kp", "-", f"{coeffs.Kp:.10g}", "-", "-", "-", "-"], ["Hi", "-", f"{coeffs.Hi:.10g}", "-", "-", "-", "-"]]
+        for sec in coeffs.sections:
+            b = list(sec.b) + [0.0] * (3 - len(sec.b))
+            a = list(sec.a) + [0.0] * (2 - len(sec.a))
+            tuned = "-" if sec.tuned_frequency_hz is None else _num(sec.tuned_frequency_hz, 6)
+            rows.append([e(sec.name), tuned] + [f"{x:.10g}" for x in b] + [f"{x:.10g}" for x in a])
+        out.append(_table(
+            ["Part", "Tuned to [Hz]", f"b0 / gain [{e(unit)}]", f"b1 [{e(unit)}]", f"b2 [{e(unit)}]", "a1 [-]", "a2 [-]"],
+            rows, caption=f"Controller coefficients, exact ({e(label)})",
+        ))
+    qz = ex.quantised
+    if qz.number_format.kind != "float64":
+        vals = qz.values()
+        rows = [[e(n), f"{v.value:.10g}", "-" if v.integer is None else str(v.integer)] for n, v in vals]
+        out.append(_table(["Coefficient", f"Stored value [{e(qz.gain_unit)} or -]", "Stored integer [-]"], rows,
+                          caption=f"Stored coefficients ({e(qz.number_format.kind)}, "
+                          f"{qz.number_format.word_bits} bits)"))
+    rc = ex.recheck
+    rows = [["exact coefficients", e(rc.before.verdict), f"{rc.before.spectral_radius:.6f}",
+             _deg(rc.before.phase_margin_deg), _num(rc.before.sensitivity_peak)]]
+    if rc.after is not None:
+        rows.append(["stored (quantised) coefficients", e(rc.after.verdict), f"{rc.after.spectral_radius:.6f}",
+                     _deg(rc.after.phase_margin_deg), _num(rc.after.sensitivity_peak)])
+    out.append(_table(["Controller", "Verdict", "Spectral radius [-]", "Smallest phase margin [deg]",
+                       "Sensitivity peak Ms [-]"], rows, caption="Re-check of the loop with the exported coefficients"))
+    msgs = list(notes) + list(rc.warnings)
+    if msgs:
+        out.append("<div class='warn'><ul>" + "".join(f"<li>{e(m)}</li>" for m in msgs) + "</ul></div>")
+    return "".join(out)
+
+
 def build_gains(ctx: ReportContext) -> Section:
-    """Picked gains and exported coefficients (``loopcheck.pick``, ``loopcheck.firmware``)."""
-    return Section(
-        "gains", "Picked gains and firmware coefficients",
-        not_available("Gain picking and the firmware export", "loopcheck.pick / loopcheck.firmware"), False,
-    )
+    """Picked gains (``loopcheck.pick``) and exported coefficients (``loopcheck.firmware``)."""
+    title = "Picked gains and firmware coefficients"
+    parts, available = [], False
+    pick_html = ctx.shared.get("pick_html")
+    if pick_html is None and _has_module("loopcheck.pick"):
+        pick_html = _pick_html(ctx)
+    if pick_html:
+        parts.append("<h3>Damping gain with the most room</h3>" + pick_html)
+        available = True
+    else:
+        parts.append(not_available("Picking the damping gain", "loopcheck.pick"))
+    if _has_module("loopcheck.firmware"):
+        parts.append("<h3>Exported controller coefficients</h3>" + _firmware_html(ctx))
+        available = True
+    else:
+        parts.append(not_available("The firmware export", "loopcheck.firmware"))
+    return Section("gains", title, "".join(parts), available)
+
+
+def _pick_html(ctx: ReportContext) -> str | None:
+    """Picked damping gain; None until the pick module is wired in."""
+    return None
 
 
 def build_waveforms(ctx: ReportContext) -> Section:
-    """Simulated waveforms (module ``loopcheck.simulate``)."""
-    return Section(
-        "waveforms", "Simulated waveforms",
-        not_available("The time-domain simulation", "loopcheck.simulate"), False,
+    """Simulated waveforms (``loopcheck.simulate``, ``loopcheck.sim_plot``), with the
+    undamped loop (Hi = 0) overlaid when the design uses capacitor-current damping."""
+    title = "Simulated waveforms"
+    if not all(_has_module(m) for m in ("loopcheck.simulate", "loopcheck.sim_plot", "loopcheck.scenario")):
+        return Section("waveforms", title, not_available("The time-domain simulation", "loopcheck.simulate"), False)
+    from dataclasses import replace
+
+    from loopcheck.scenario import parse_scenario
+    from loopcheck.sim_plot import waveform_figure
+    from loopcheck.simulate import resonance_rate_check, simulate
+
+    case, d = ctx.case, ctx.design
+    tables = getattr(case, "tables", {}) or {}
+    sc = parse_scenario(tables.get("scenario"), case.where("scenario"))
+    if sc.phases is None and _has_module("loopcheck.pwm_tables"):
+        from loopcheck.pwm_tables import read_pwm
+
+        pwm, _ = read_pwm(case, required=False)
+        if pwm is not None:
+            sc = replace(sc, phases=pwm.phases)
+    ctx.progress("simulation")
+    w = simulate(d, sc)
+    rc = resonance_rate_check(d, sc)
+    w0 = rc0 = None
+    if d.control.Hi_V_per_A != 0.0:
+        w0 = simulate(d, sc, Hi_V_per_A=0.0)
+        rc0 = resonance_rate_check(d, sc, Hi_V_per_A=0.0)
+    fig = waveform_figure(w, w0, rc, rc0, title=f"Simulated waveforms: {d.name or 'design'}")
+    body = figure_html(
+        _png(fig, ctx),
+        "Simulated grid current, converter current, capacitor voltage and controller output over time",
+        "Exact sampled-data simulation: the continuous LCL filter integrated exactly between samples under the "
+        "discrete controller with its computation delay and the modulator's hold (averaged modulator, no "
+        "switching ripple). Solid: the design"
+        + ("; dashed: the same loop with the capacitor-current damping switched off (Hi = 0)." if w0 is not None else ".")
+        + " Vertical lines mark the events.",
+        "fig-waveforms",
     )
+    rows = []
+    for label, r in (("design", rc), ("Hi = 0", rc0)):
+        if r is None:
+            continue
+        rows.append([
+            e(label), _num(r.simulated_rate_per_s, 5), _num(r.predicted_rate_per_s, 5),
+            "n/a" if r.rate_error is None else f"{100 * r.rate_error:.3g}",
+            _num(r.simulated_frequency_hz, 5), _num(r.predicted_frequency_hz, 5),
+            "n/a" if r.frequency_error is None else f"{100 * r.frequency_error:.3g}",
+        ])
+    body += _table(
+        ["Loop", "Simulated rate [1/s]", "Pole rate ln|z|/Ts [1/s]", "Difference [%]",
+         "Simulated frequency [Hz]", "Pole frequency [Hz]", "Difference [%]"],
+        rows, caption="The resonance oscillation in the waveform beside the closed-loop pole that predicts it "
+        "(negative rate: decays; positive: grows)",
+    )
+    notes = list(w.notes) + ([f"Hi = 0 run: {n}" for n in w0.notes] if w0 is not None else [])
+    if notes:
+        body += "<div class='warn'><ul>" + "".join(f"<li>{e(n)}</li>" for n in notes) + "</ul></div>"
+    return Section("waveforms", title, body)
 
 
 def build_harmonics(ctx: ReportContext) -> Section:
-    """Harmonic check (module ``loopcheck.harmonics``)."""
-    return Section(
-        "harmonics", "Harmonic check",
-        not_available("The harmonic check", "loopcheck.harmonics"), False,
+    """Harmonic check (``loopcheck.harmonics``, ``loopcheck.harmonics_plot``); needs a ``[pwm]`` table."""
+    title = "Harmonic check"
+    if not all(_has_module(m) for m in ("loopcheck.harmonics", "loopcheck.harmonics_plot", "loopcheck.pwm_tables")):
+        return Section("harmonics", title, not_available("The harmonic check", "loopcheck.harmonics"), False)
+    from loopcheck.harmonics import OvermodulationError, harmonic_check
+    from loopcheck.harmonics_plot import harmonics_figure
+    from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
+
+    case, d = ctx.case, ctx.design
+    pwm, pwm_warn = read_pwm(case, required=False)
+    if pwm is None:
+        return Section("harmonics", title, (
+            "<p class='na'><strong>Not computed for this case.</strong> The harmonic check needs a "
+            "<code>[pwm]</code> table in the case file (dc-link voltage, switching frequency, modulation "
+            "scheme and update); this case has none. See <code>loopcheck harmonics --help</code>.</p>"
+        ), False)
+    opts = read_harmonics_options(case)
+    op = operating_point_of(case, pwm, opts)
+    try:
+        check = harmonic_check(d, pwm, op, opts.max_group, opts.max_sideband, opts.lg_points)
+    except OvermodulationError as exc:
+        return Section("harmonics", title, f"<p class='na'><strong>Not computed.</strong> {e(str(exc))}</p>", False)
+    ctx.progress("harmonics figure")
+    body = figure_html(
+        _png(harmonics_figure(check, name=d.name), ctx),
+        "Grid-current sidebands around the switching frequency against the current-distortion limits",
+        "Grid-current sidebands of the carrier-based modulator through the LCL filter, in % of the rated "
+        "current, against the limits of the tables named below.",
+        "fig-harmonics",
     )
+    w = check.worst
+    verdict = "within" if check.complies else "ABOVE"
+    body += (
+        f"<p><strong>Worst sideband:</strong> {_num(w.frequency_hz, 6)} Hz (order {w.order:.1f}), "
+        f"{_num(w.percent)} % of the rated current against a limit of {_num(w.limit_percent, 3)} % "
+        f"(margin {w.margin_db:+.1f} dB): {verdict} the limits. Modulation index {check.modulation_index:.3f}, "
+        f"{e(pwm.scheme)}, {e(pwm.update)} update, fsw = {_num(pwm.fsw_hz, 6)} Hz, Vdc = {_num(pwm.Vdc_V)} V.</p>"
+    )
+    biggest = sorted(check.sidebands, key=lambda s: -s.percent)[:8]
+    rows = [
+        [f"({s.m}, {s.n:+d})", _num(s.frequency_hz, 6), f"{s.order:.1f}", _num(s.converter_V), _num(s.percent),
+         _num(s.limit_percent, 3) + (" (assumed)" if s.assumed_limit else ""), f"{s.margin_db:+.1f}"]
+        for s in sorted(biggest, key=lambda s: s.frequency_hz)
+    ]
+    body += _table(["Sideband (m, n)", "Frequency [Hz]", "Order [-]", "Converter voltage [V peak]",
+                    "Grid current [% of rated]", "Limit [%]", "Margin [dB]"], rows,
+                   caption="The largest sidebands")
+    if check.worst_over_range is not None:
+        r = check.worst_over_range
+        body += (f"<p>Over the grid-inductance range the smallest margin is {r.margin_db:+.1f} dB at "
+                 f"Lg = {e(q(r.Lg_H, 'H'))} ({_num(r.frequency_hz, 6)} Hz, {_num(r.percent)} % of rated).</p>")
+    body += "<p>Limits: " + "; ".join(e(t) for t in check.limit_tables) + ".</p>"
+    body += "<ul class='assume'>" + "".join(f"<li>{e(a)}</li>" for a in check.assumptions) + "</ul>"
+    if pwm_warn:
+        body += "<div class='warn'><ul>" + "".join(f"<li>{e(m)}</li>" for m in pwm_warn) + "</ul></div>"
+    body += (
+        "<p class='src'>A design aid, not a compliance test: the limits apply at the point of common coupling "
+        "and are verified by measurement; local codes and the utility's interconnection rules govern.</p>"
+    )
+    return Section("harmonics", title, body)
 
 
 def assumption_items(design) -> list[str]:
@@ -587,6 +769,7 @@ def build_report(case, options: ReportOptions | None = None, progress: Callable[
     sections that fail show a visible error line and are listed in
     ``Report.problems``."""
     from loopcheck.analysis import analyse
+    from loopcheck.casefile import CaseError
     from loopcheck.loop import build_loop
 
     t0 = time.perf_counter()
@@ -605,6 +788,8 @@ def build_report(case, options: ReportOptions | None = None, progress: Callable[
             continue
         try:
             sections.append(builder(ctx))
+        except CaseError:
+            raise  # bad input in an optional table: the caller reports it (exit 2)
         except Exception as exc:  # an optional section must not sink the report; say so visibly
             msg = f"section '{sid}' could not be computed for this case: {type(exc).__name__}: {exc}"
             problems.append(msg)
