@@ -92,6 +92,11 @@ def simulate(
         typer.Option("--csv", help="Write the waveforms as CSV (with --compare also <name>.compare.csv).",
                      show_default=False),
     ] = None,
+    switched: Annotated[
+        bool,
+        typer.Option("--switched", help="Use the switched model (carrier-based PWM from the [pwm] table) instead of the "
+                     "averaged modulator for the waveforms; the rate check stays on the averaged model."),
+    ] = False,
     json_output: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of the text summary.")] = False,
 ) -> None:
     """Simulate the continuous LCL filter under the discrete controller
@@ -143,17 +148,28 @@ def simulate(
         pwm, pwm_warn = read_pwm(loaded, required=False)
     except CaseError as exc:
         fail(str(exc))
+    if switched and pwm is None:
+        fail(f"{loaded.where('pwm')}: missing table; --switched needs [pwm] with dc_link (e.g. \"750 V\")")
     if sc.phases is None and pwm is not None:
         sc = replace(sc, phases=pwm.phases)
-    w = run(design, sc)
+    if switched:
+        from loopcheck.switched import sideband_check, simulate_switched
+
+        def run_model(Hi=None):
+            return simulate_switched(design, pwm, sc, Hi_V_per_A=Hi)
+    else:
+        def run_model(Hi=None):
+            return run(design, sc, Hi_V_per_A=Hi)
+    w = run_model()
     rc = resonance_rate_check(design, sc)
     w_c = rc_c = None
     if Hi_cmp is not None:
-        w_c = run(design, sc, Hi_V_per_A=Hi_cmp)
+        w_c = run_model(Hi_cmp)
         rc_c = resonance_rate_check(design, sc, Hi_V_per_A=Hi_cmp)
+    sidebands = sideband_check(design, pwm, w, sc) if switched else None
 
     notes = list(w.notes)
-    if pwm is not None:
+    if pwm is not None and not switched:
         import numpy as np
 
         limit = pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0
@@ -199,7 +215,9 @@ def simulate(
             "points_per_sample": w.points_per_sample,
             "resonance_hz": w.resonance_hz,
             "events": [{"time_s": t, "event": txt} for t, txt in w.events],
+            "model": w.model,
             "design": {"verdict": verdict, "rate_check": rc, "tripped_at_s": w.tripped_at_s},
+            "switched_sidebands": sidebands,
             "notes": notes + list(pwm_warn),
             "files": files,
             "warnings": list(loaded.warnings),
@@ -212,6 +230,8 @@ def simulate(
         f"simulate: {design.name} ({loaded.path})",
         f"  run: {sc.duration_s * 1e3:g} ms, Ts = {w.Ts_s * 1e6:.4g} us, computation delay {w.delay:g} Ts, "
         f"{w.points_per_sample} points per sample (exact between samples), start: {sc.start}",
+        f"  model: {'averaged modulator' if w.model == 'averaged' else w.model}"
+        + ("; the rate check below uses the averaged model" if switched else ""),
         f"  grid voltage {grid_peak_voltage_V(design, sc):.4g} V peak, current reference "
         f"{reference_peak_A(design, sc):.4g} A peak (per phase; {sc.phases or 3}-phase reading of [grid] V and S)",
         f"  LCL resonance with Lg: {w.resonance_hz:,.1f} Hz; critical frequency fs/(4*delay+2): "
@@ -228,6 +248,17 @@ def simulate(
         if run_ is not None and run_.tripped_at_s is not None:
             out.append(f"  {name}: a current passed the trip level {run_.trip_current_A:.4g} A at "
                        f"{run_.tripped_at_s * 1e3:.4g} ms; the run stops there")
+    if switched:
+        out.append("")
+        if sidebands is None:
+            out.append("  switched model: no exact sideband comparison (needs whole-number fs/f1 and fsw/f1, two "
+                       "fundamental periods after the last event, no trip)")
+        else:
+            out.append("  grid-current sidebands, switched simulation vs harmonic model (last two fundamental periods):")
+            out.append(f"    {'(m, n)':<10}{'frequency [Hz]':>16}{'simulated [A]':>16}{'predicted [A]':>16}{'difference':>12}")
+            for sb in sidebands:
+                out.append(f"    {f'({sb.m}, {sb.n:+d})':<10}{sb.frequency_hz:>16,.0f}{sb.simulated_A:>16.4g}"
+                           f"{sb.predicted_A:>16.4g}{100 * sb.difference:>11.2f}%")
     for n in notes:
         if "trip level" not in n:
             out.append(f"  note: {n}")

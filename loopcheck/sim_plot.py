@@ -151,9 +151,10 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
                 labels.append(ll)
     fig.legend(handles, labels, loc="outside lower center", ncols=2, fontsize=8, frameon=False)
     if title is None:
+        model = "averaged modulator" if w.model == "averaged" else w.model
         title = (
-            f"Simulated waveforms: {w.name or 'design'}  (exact sampled-data simulation, Ts = {w.Ts_s * 1e6:.4g} us, "
-            f"delay {w.delay:g} Ts)"
+            f"Simulated waveforms: {w.name or 'design'}\n(exact sampled-data simulation, {model}, "
+            f"Ts = {w.Ts_s * 1e6:.4g} us, delay {w.delay:g} Ts)"
         )
     fig.suptitle(title, fontsize=10.5)
     return fig

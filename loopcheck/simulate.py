@@ -84,7 +84,8 @@ class Waveforms:
     initial grid inductance [Hz]; events: (time_s, text) of each event as
     applied (time rounded to a sampling instant); tripped_at_s: time [s] at
     which a current exceeded ``trip_current_A`` and the run stopped, or
-    None; notes: remarks (e.g. no steady state found).
+    None; notes: remarks (e.g. no steady state found); model: "averaged"
+    or a description of the switched modulator (:mod:`loopcheck.switched`).
     """
 
     name: str
@@ -108,6 +109,7 @@ class Waveforms:
     events: tuple[tuple[float, str], ...]
     tripped_at_s: float | None
     notes: tuple[str, ...]
+    model: str = "averaged"
 
 
 # ---------------------------------------------------------------------------
@@ -525,6 +527,38 @@ def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float
     )
 
 
+def steady_loop_state(design: Design, scenario: Scenario, Hi_V_per_A: float | None = None):
+    """Loop states at t = 0 of the periodic steady state of the averaged
+    model under the scenario's grid voltage (with harmonics) and reference
+    (no events): (x [n] filter states, u_prev [V] held voltage, c [m]
+    controller states), or None when no steady state can be computed.
+    Used to start the switched model (:mod:`loopcheck.switched`)."""
+    Hi = design.control.Hi_V_per_A if Hi_V_per_A is None else float(Hi_V_per_A)
+    Ts = design.sampling.Ts_s
+    w1 = 2.0 * math.pi * design.grid.f_hz
+    harmonics = scenario.grid_harmonics
+    grid_w = [w1] + [w1 * h.order for h in harmonics]
+    ctrl = parallel(controller_blocks(design.control, design.grid.f_hz, Ts))
+    n = design_plant(design).A.shape[-1]
+    lay = _Layout(n=n, G=len(grid_w), J=0, m=ctrl.A.shape[-1])
+    seg = _segment(design, design.grid.Lg_H, Hi, lay, grid_w, [], ctrl, 1)
+    S = np.zeros(lay.nS)
+    vp = grid_peak_voltage_V(design, scenario)
+    ph = math.radians(scenario.grid_phase_deg)
+    S[lay.grid(0)], S[lay.grid(0) + 1] = vp * math.cos(ph), vp * math.sin(ph)
+    for g, h in enumerate(harmonics, 1):
+        a = lay.grid(g)
+        hp = math.radians(h.phase_deg)
+        S[a], S[a + 1] = h.share * vp * math.cos(hp), h.share * vp * math.sin(hp)
+    ip = reference_peak_A(design, scenario)
+    th = ph + math.radians(scenario.reference_phase_deg)
+    S[lay.ir], S[lay.ir + 1] = ip * math.cos(th), ip * math.sin(th)
+    S = _steady_state(seg, lay, S)
+    if S is None:
+        return None
+    return S[:n].copy(), float(S[lay.iu]), S[lay.ic].copy()
+
+
 def sampled_system_matrix(design: Design, Hi_V_per_A: float | None = None, points_per_sample: int = 1) -> np.ndarray:
     """The matrix M of the simulator's recursion S[k+1] = M S[k] with no grid
     harmonics and no injections (states: filter, grid oscillator, held
@@ -844,5 +878,5 @@ def resonance_rate_check(
         samples=n_used,
         Lg_H=Lg,
         Hi_V_per_A=Hi,
-        excitation=ev0.describe(),
+        excitation=ev0.describe() + ("" if inj else " (added for the check)"),
     )

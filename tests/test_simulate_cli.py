@@ -225,3 +225,16 @@ def test_matplotlib_only_in_plot_modules():
             elif isinstance(node, ast.ImportFrom) and node.module:
                 mods = [node.module]
             assert not any(m.split(".")[0] == "matplotlib" for m in mods), name
+
+
+def test_switched_option(tmp_path):
+    extra = '[pwm]\ndc_link = "700 V"\nupdate = "double"\n[scenario]\nduration = "60 ms"\n'
+    case = write(tmp_path, extra=extra)
+    r = invoke("simulate", case, "--switched", "--json")
+    assert r.exit_code == 0, r.stderr
+    rec = json.loads(r.stdout)
+    assert rec["model"].startswith("switched (three-phase, double update, fsw = 8000 Hz")
+    sbs = rec["switched_sidebands"]
+    assert sbs and all(abs(s["difference"]) < 0.01 for s in sbs)
+    r = invoke("simulate", write(tmp_path, extra="", name="nopwm.toml"), "--switched")
+    assert r.exit_code == 2 and "[pwm]: missing table; --switched needs" in r.stderr
