@@ -232,7 +232,7 @@ def compare_damping(design: Design, op: OperatingPoint, pwm: PwmSpec | None = No
     else:
         rows.append(resistor_loss(design, op, pwm, label=f"design: passive {kind}, Rd = {design.filter.damping.Rd_ohm:.4g} ohm"))
         und = replace(design, filter=replace(design.filter, damping=PassiveDamping()))
-        rows.append(resistor_loss(und, op, pwm, label="active alternative: no resistor (virtual resistor Hi, choose and check it)"))
+        rows.append(resistor_loss(und, op, pwm, label="active alternative: no resistor (choose and check Hi)"))
     if pwm is None:
         notes.append("no [pwm] table: ripple losses not computed (fundamental only)")
     phases = pwm.phases if pwm is not None else 3

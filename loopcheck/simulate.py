@@ -594,8 +594,7 @@ def write_csv(w: Waveforms, stream) -> None:
     )
     stream.write("time_s,i1_A,i2_A,ic_A,vc_V,vg_V,vi_V,u_V,iref_A\n")
     cols = np.column_stack([w.time_s, w.i1_A, w.i2_A, w.ic_A, w.vc_V, w.vg_V, w.vi_V, u, iref])
-    for row in cols:
-        stream.write(",".join(f"{v:.9g}" for v in row) + "\n")
+    np.savetxt(stream, cols, delimiter=",", fmt="%.9g")
 
 
 # ---------------------------------------------------------------------------
