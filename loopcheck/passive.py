@@ -182,7 +182,15 @@ def resistor_loss(design: Design, op: OperatingPoint, pwm: PwmSpec | None = None
 
 def rule_series_resistor_ohm(design: Design) -> float:
     """Rd = 1/(3 w_r C) [ohm] with the LCL resonance w_r of the undamped
-    filter (Liserre, Dell'Aquila and Blaabjerg 2004, module references)."""
+    filter (total shunt capacitance C).
+
+    References
+    ----------
+    .. [1] M. Liserre, A. Dell'Aquila and F. Blaabjerg, "Genetic
+       algorithm-based design of the active damping for an LCL-filter
+       three-phase active rectifier", IEEE Trans. Power Electron., vol. 19,
+       no. 1, 2004.
+    """
     fr = design_resonance_hz(design)
     return 1.0 / (3.0 * 2.0 * math.pi * fr * design.filter.shunt_capacitance_F)
 

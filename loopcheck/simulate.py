@@ -644,12 +644,20 @@ class RateCheck:
 
 
 def pole_rate_per_s(z: complex, Ts_s: float) -> float:
-    """Exponential rate sigma = ln|z| / Ts [1/s] of a discrete pole."""
+    """Exponential rate sigma = ln|z| / Ts [1/s] of a discrete pole
+    (z = e^{s Ts}).
+
+    References
+    ----------
+    .. [1] K. J. Astrom and B. Wittenmark, "Computer-Controlled Systems:
+       Theory and Design", 3rd ed., Prentice Hall, 1997, ch. 2.
+    """
     return math.log(abs(z)) / Ts_s
 
 
 def pole_frequency_hz(z: complex, Ts_s: float) -> float:
-    """Oscillation frequency angle(z) / (2 pi Ts) [Hz] of a discrete pole."""
+    """Oscillation frequency |angle(z)| / (2 pi Ts) [Hz] of a discrete pole
+    (z = e^{s Ts}; Astrom and Wittenmark 1997, see :func:`pole_rate_per_s`)."""
     return abs(math.atan2(z.imag, z.real)) / (2.0 * math.pi * Ts_s)
 
 
