@@ -166,11 +166,10 @@ def _boundary_label(smap) -> str:
 
 
 def _metric_panel(fig, ax, smap, X, Y, Z, title, label, cmap_name, fx, fy, over=None, vmin=None, vmax=None):
-    cmap = ListedColormap(_cmap_colors(cmap_name))
-    cmap.set_bad(LIGHT_GREY)
+    cmap = ListedColormap(_cmap_colors(cmap_name)).with_extremes(bad=LIGHT_GREY)
     extend = "neither"
     if over is not None:
-        cmap.set_over(over)
+        cmap = cmap.with_extremes(over=over)
         extend = "max"
     Zm = np.ma.masked_invalid(np.where(np.isposinf(Z), np.nan, Z)) if over is None else np.ma.masked_invalid(
         np.where(np.isposinf(Z), 1e300, Z)

@@ -216,7 +216,7 @@ def map_spec(case, overrides: Overrides | None = None):
         """(raw value, label) for a key: the option when given, else the table."""
         opt = getattr(ov, key)
         if opt is not None:
-            return opt, "--" + key.replace("_", "-")
+            return opt, "--metric" if key == "metrics" else "--" + key.replace("_", "-")
         if key in table:
             return table[key], f"{where} {key}"
         return None, f"{where} {key}"
