@@ -81,7 +81,7 @@ def simulate(
         Optional[list[str]],
         typer.Option("--event", help='Add an event, e.g. "resonance-burst at=20ms peak=15V" or '
                      '"grid-inductance-step at=30ms Lg=3mH" (repeatable; same keys as [[scenario.events]]).',
-                     show_default=False),
+                     show_default=False, metavar="EVENT"),
     ] = None,
     output: Annotated[
         Optional[Path],
@@ -266,4 +266,7 @@ def simulate(
         warn(msg)
     for f in files:
         out.append(f"  wrote {f}")
+    out.append("")
+    out.append("  Model results (linear parts, ideal modulator): they do not replace protection, hardware tests, "
+               "grid-code compliance testing or licensed engineering sign-off.")
     typer.echo("\n".join(out))
