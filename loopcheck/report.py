@@ -148,7 +148,10 @@ def _deg(x: float | None) -> str:
 def _table(headers: list[str], rows: list[list[str]], caption: str = "", cls: str = "") -> str:
     """A table; headers and cells are HTML (escape before)."""
     head = "".join(f"<th scope='col'>{h}</th>" for h in headers)
-    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in r) + "</tr>" for r in rows)
+    body = "".join(
+        "<tr>" + "".join(f"<td class='n'>{c}</td>" if len(c) <= 14 else f"<td>{c}</td>" for c in r) + "</tr>"
+        for r in rows
+    )
     cap = f"<caption>{caption}</caption>" if caption else ""
     klass = f" class='{cls}'" if cls else ""
     return f"<table{klass}>{cap}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
@@ -452,18 +455,140 @@ def build_frequency(ctx: ReportContext) -> Section:
 
 
 def build_map(ctx: ReportContext) -> Section:
-    """Stability map with the design point (module ``loopcheck.maps``)."""
-    if not (_has_module("loopcheck.maps") and _has_module("loopcheck.map_plot")):
-        return Section("map", "Stability map", not_available("The stability map", "loopcheck.maps"), False)
-    return Section("map", "Stability map", not_available("The stability map", "loopcheck.maps"), False)
+    """Stability map with the design point (``loopcheck.maps``, ``loopcheck.map_plot``),
+    axes from the case's ``[map]`` table at the report's own resolution."""
+    title = "Stability map"
+    if not all(_has_module(m) for m in ("loopcheck.maps", "loopcheck.map_plot", "loopcheck.map_table")):
+        return Section("map", title, not_available("The stability map", "loopcheck.maps"), False)
+    from loopcheck.map_plot import map_figure
+    from loopcheck.map_table import Overrides, map_spec
+    from loopcheck.maps import compute_map
+
+    d = ctx.design
+    nx, ny = ctx.options.map_points
+    spec = map_spec(ctx.case, Overrides(x_points=nx, y_points=ny, metrics=()))
+    ctx.progress("stability map")
+    smap = compute_map(d, spec)
+    kr_unit = "V/A" if d.control.wc_rad_s > 0 else "V/A/s"
+    body = figure_html(
+        _png(map_figure(smap, kr_unit=kr_unit), ctx),
+        f"Stability map over {spec.x.name} and {spec.y.name} with the design point",
+        f"Where the loop is stable over {e(spec.x.name)} (x) and {e(spec.y.name)} (y), everything else at the "
+        f"design's values; {nx} x {ny} grid points, boundaries located exactly along gain axes. The design "
+        "point is marked.",
+        "fig-map",
+    )
+    verdict = "stable" if smap.design_stable else "not stable"
+    iv = smap.design_interval
+    line = (f"<p>At the design's own {e(spec.x.name)} the design point is <strong>{verdict}</strong>")
+    if iv is not None:
+        line += f"; the stable {e(spec.y.name)} interval around it runs from {_num(iv[0], 5)} to {_num(iv[1], 5)}"
+    line += f" (SI units of the axis). Share of the map that is stable: {100.0 * float(smap.stable.mean()):.1f} %.</p>"
+    return Section("map", title, body + line)
+
+
+def _grid_inputs(ctx: ReportContext):
+    """(Lg range [H] or None, tolerance spec, targets) of the case, parsed once."""
+    if "grid_inputs" not in ctx.shared:
+        from loopcheck.tolerance import parse_tolerance_table
+        from loopcheck.weakgrid import parse_targets
+
+        case = ctx.case
+        tables = getattr(case, "tables", {}) or {}
+        spec = parse_tolerance_table(tables.get("tolerance"), case.where("tolerance"), ctx.design)
+        targets = parse_targets(tables.get("targets"), case.where("targets"))
+        ctx.shared["grid_inputs"] = (ctx.design.grid.Lg_range_H, spec, targets)
+    return ctx.shared["grid_inputs"]
+
+
+def _scr_of(design):
+    g = design.grid
+    if g.S_VA is None or g.V_V is None:
+        return None
+    from loopcheck.scr import scr_from_lg
+
+    return lambda lg: float(scr_from_lg(float(lg), g.S_VA, g.V_V, g.f_hz)) if lg > 0 else math.inf
 
 
 def build_weak_grid(ctx: ReportContext) -> Section:
-    """Weak-grid table and plot (module ``loopcheck.weakgrid``)."""
-    return Section(
-        "weakgrid", "Weak grid: the grid-inductance range",
-        not_available("The weak-grid sweep", "loopcheck.weakgrid"), False,
+    """Weak-grid table and plot (``loopcheck.weakgrid``, ``loopcheck.grid_plot``)."""
+    title = "Weak grid: the grid-inductance range"
+    if not all(_has_module(m) for m in ("loopcheck.weakgrid", "loopcheck.grid_plot", "loopcheck.tolerance")):
+        return Section("weakgrid", title, not_available("The weak-grid sweep", "loopcheck.weakgrid"), False)
+    rng, spec, targets = _grid_inputs(ctx)
+    if rng is None:
+        return Section("weakgrid", title, (
+            "<p class='na'><strong>Not computed for this case.</strong> The weak-grid sweep needs a grid-inductance "
+            "range: <code>Lg_range</code> or <code>scr_range</code> in <code>[grid]</code>. This case gives only "
+            "the nominal grid inductance, whose verdict is above.</p>"
+        ), False)
+    from loopcheck.grid_plot import grid_figure
+    from loopcheck.verdict import classify
+    from loopcheck.weakgrid import sweep_grid
+
+    d = ctx.design
+    ctx.progress("weak-grid sweep")
+    res = sweep_grid(d, rng, spec, targets, n_points=61)
+    fig = grid_figure(res, design_Lg_H=d.grid.Lg_H, title=d.name)
+    body = figure_html(
+        _png(fig, ctx),
+        "Verdict and margins against the grid inductance",
+        "Verdict and margins of the design against the grid inductance Lg over the case's range, for the "
+        "nominal filter" + (" and every tolerance corner" if res.corners else "") + "; the crossing of the "
+        "critical frequency is marked.",
+        "fig-weakgrid",
     )
+    nom = res.nominal
+    ivs = "; ".join(f"{q(a, 'H')} to {q(b, 'H')}" for a, b in nom.scan.stable_intervals_H) or "none"
+    lo, hi = rng
+    body += (
+        f"<p><strong>Stable Lg intervals</strong> (nominal filter, range {e(q(lo, 'H'))} to {e(q(hi, 'H'))}): "
+        f"{e(ivs)}. Targets: {e(targets.describe())}.</p>"
+    )
+    if res.Lg_critical_H is not None:
+        body += (f"<p>The resonance crosses the critical frequency {_hz(res.critical_hz)} at Lg = "
+                 f"{e(q(res.Lg_critical_H, 'H'))}.</p>")
+    scr_of = _scr_of(d)
+    rows = []
+    step = max(1, (nom.Lg_H.size - 1) // 10)  # about 11 rows of the 61 computed
+    for i in range(0, nom.Lg_H.size, step):
+        m = nom.margins.take(i)
+        sr = float(m.spectral_radius)
+        row = [e(q(float(nom.Lg_H[i]), "H"))]
+        if scr_of is not None:
+            row.append(_num(scr_of(float(nom.Lg_H[i])), 4))
+        row += [
+            _num(float(nom.resonance_hz[i]), 5), e(classify(sr)), f"{sr:.5f}",
+            _deg(None if not math.isfinite(float(m.phase_margin_deg)) else float(m.phase_margin_deg)),
+            _db_or(float(m.gm_lower_db)), _db_or(float(m.gm_upper_db)), _num(float(m.sensitivity_peak)),
+        ]
+        rows.append(row)
+    heads = ["Lg [H]"] + (["SCR [-]"] if scr_of is not None else []) + [
+        "Resonance [Hz]", "Verdict", "Spectral radius [-]", "Phase margin [deg]",
+        "Lower gain margin [dB]", "Upper gain margin [dB]", "Sensitivity peak Ms [-]"]
+    body += _table(heads, rows, caption="Nominal filter over the grid-inductance range")
+    w = res.worst
+    worst_line = (f"<p><strong>Worst point</strong> ({e(w.variant)}): Lg = {e(q(w.Lg_H, 'H'))}, resonance "
+                  f"{_hz(w.resonance_hz)}; what sets it: {e(w.binding)}.</p>")
+    if w.shortfalls:
+        worst_line += "<div class='warn'><ul>" + "".join(f"<li>{e(x)}</li>" for x in w.shortfalls) + "</ul></div>"
+    body += worst_line
+    if res.corners:
+        crow = []
+        for f in res.corners:
+            civ = "; ".join(f"{q(a, 'H')} to {q(b, 'H')}" for a, b in f.scan.stable_intervals_H) or "none"
+            crow.append([e(f.label), "yes" if f.scan.fully_stable else "NO", e(civ)])
+        body += _table(["Tolerance corner", "Stable over the whole range", "Stable Lg intervals [H]"], crow,
+                       caption="Tolerance corners")
+    return Section("weakgrid", title, body)
+
+
+def _db_or(x: float) -> str:
+    if math.isnan(x):
+        return "n/a"
+    if math.isinf(x):
+        return "none" if x > 0 else "to zero"
+    return f"{x:+.2f}"
 
 
 def _firmware_html(ctx: ReportContext) -> str:
@@ -546,8 +671,37 @@ def build_gains(ctx: ReportContext) -> Section:
 
 
 def _pick_html(ctx: ReportContext) -> str | None:
-    """Picked damping gain; None until the pick module is wired in."""
-    return None
+    """The damping gain picked by ``loopcheck.pick`` (with its figure)."""
+    if not _has_module("loopcheck.pick_plot"):
+        return None
+    from loopcheck.pick import pick_gain
+    from loopcheck.pick_plot import pick_figure
+
+    d = ctx.design
+    rng, spec, targets = _grid_inputs(ctx)
+    ctx.progress("picking the damping gain")
+    res = pick_gain(d, rng, spec, targets)
+    out = []
+    if res.Hi_V_per_A is not None:
+        out.append(
+            f"<p><strong>Recommended Hi = {_num(res.Hi_V_per_A, 5)} V/A</strong> (the design uses "
+            f"{_num(d.control.Hi_V_per_A, 5)} V/A; Kp = {_num(res.Kp_V_per_A, 5)} V/A). Worst-case robustness "
+            f"index {res.index:.3f} (1 = every target just met); "
+            f"{'meets' if res.meets_targets else 'does NOT meet'} the targets ({e(res.targets.describe())}).</p>"
+        )
+    ivs = "; ".join(f"{_num(a, 5)} to {_num(b, 5)}" for a, b in res.Hi_interval_V_per_A)
+    out.append(f"<p>Hi interval meeting the targets [V/A]: {e(ivs) if ivs else 'none'}.</p>")
+    if res.ends:
+        out.append("<ul>" + "".join(f"<li>{e(x.text)}</li>" for x in res.ends) + "</ul>")
+    out.append(f"<p>{e(res.message)}</p>")
+    out.append(figure_html(
+        _png(pick_figure(res, design_Hi_V_per_A=d.control.Hi_V_per_A, title=d.name), ctx),
+        "Worst-case margins against the damping gain Hi",
+        "Worst case over the grid-inductance range and the tolerance corners against the capacitor-current "
+        "gain Hi, with the recommendation and the design's own Hi marked.",
+        "fig-pick",
+    ))
+    return "".join(out)
 
 
 def build_waveforms(ctx: ReportContext) -> Section:
@@ -760,6 +914,42 @@ def read_report_options(case) -> ReportOptions:
 # ---------------------------------------------------------------------------
 
 
+def check_tables(case) -> None:
+    """Read every optional table the report's sections use, before any long
+    work, so bad input fails fast. Raises :class:`loopcheck.casefile.CaseError`
+    (one line naming the file, table and key)."""
+    tables = getattr(case, "tables", {}) or {}
+    design = case.design
+    if _has_module("loopcheck.map_table"):
+        from loopcheck.map_table import map_spec
+
+        map_spec(case)
+    if _has_module("loopcheck.tolerance"):
+        from loopcheck.tolerance import parse_tolerance_table
+
+        parse_tolerance_table(tables.get("tolerance"), case.where("tolerance"), design)
+    if _has_module("loopcheck.weakgrid"):
+        from loopcheck.weakgrid import parse_targets
+
+        parse_targets(tables.get("targets"), case.where("targets"))
+    if _has_module("loopcheck.scenario"):
+        from loopcheck.scenario import parse_scenario
+
+        parse_scenario(tables.get("scenario"), case.where("scenario"))
+    if _has_module("loopcheck.pwm_tables"):
+        from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
+
+        pwm, _ = read_pwm(case, required=False)
+        opts = read_harmonics_options(case)
+        if pwm is not None:
+            operating_point_of(case, pwm, opts)
+    if _has_module("loopcheck.firmware") and "firmware" in tables:
+        from loopcheck.firmware import read_firmware_settings
+
+        read_firmware_settings(tables["firmware"], case.where("firmware"),
+                               damping_gain_used=design.control.Hi_V_per_A != 0.0)
+
+
 def build_report(case, options: ReportOptions | None = None, progress: Callable[[str], None] | None = None) -> Report:
     """Analyse ``case`` and build its report.
 
@@ -775,6 +965,7 @@ def build_report(case, options: ReportOptions | None = None, progress: Callable[
     t0 = time.perf_counter()
     say = progress or (lambda msg: None)
     opts = options if options is not None else read_report_options(case)
+    check_tables(case)
     say("analysis")
     design = case.design
     analysis = analyse(design)
@@ -832,6 +1023,7 @@ caption { text-align: left; font-weight: bold; padding: 4px 0; color: var(--ink)
 th, td { border-bottom: 1px solid var(--rule); padding: 4px 8px; text-align: left; vertical-align: top; }
 th { background: #eef1f6; font-weight: 600; -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 td:nth-child(n+2) { font-variant-numeric: tabular-nums; }
+td.n { white-space: nowrap; }
 code { font-family: "DejaVu Sans Mono", "Liberation Mono", monospace; font-size: .86em; }
 figure { margin: 12px 0 18px; break-inside: avoid; page-break-inside: avoid; }
 figure img { display: block; max-width: 100%; height: auto; border: 1px solid var(--rule); }

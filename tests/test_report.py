@@ -61,7 +61,7 @@ Hi = "{hi} V/A"
 """
 
 # Optional tables for the sections of the other analyses (invented values).
-FULL_GRID = 'S = "20 kVA"\nV = "400 V"'
+FULL_GRID = 'S = "20 kVA"\nV = "400 V"\nLg_range = ["0 mH", "1.5 mH"]'
 FULL_TABLES = """
 [pwm]
 dc_link = "720 V"
@@ -304,20 +304,33 @@ def test_report_sections_of_the_other_analyses_carry_their_results(built):
         assert "id='fig-waveforms'" in sec
         sc = parse_scenario(case.tables.get("scenario"), case.where("scenario"))
         rc = resonance_rate_check(d, sc)
-        assert f"<td>design</td><td>{rc.simulated_rate_per_s:.5g}</td><td>{rc.predicted_rate_per_s:.5g}</td>" in sec
-        assert "<td>Hi = 0</td>" in sec  # the undamped loop beside the damped one
+        assert f"<td class='n'>design</td><td class='n'>{rc.simulated_rate_per_s:.5g}</td><td class='n'>{rc.predicted_rate_per_s:.5g}</td>" in sec
+        assert "<td class='n'>Hi = 0</td>" in sec  # the undamped loop beside the damped one
     if _has("loopcheck.harmonics") and _has("loopcheck.harmonics_plot"):
         sec = _section(rep.html, "harmonics")
         assert "id='fig-harmonics'" in sec and "IEEE Std 519" in sec and "Worst sideband" in sec
+    if _has("loopcheck.maps") and _has("loopcheck.map_plot"):
+        sec = _section(rep.html, "map")
+        assert "id='fig-map'" in sec
+        # the map's own verdict at the design point agrees with the eigenvalue verdict
+        said = "<strong>stable</strong>" if analyse(d).stable else "<strong>not stable</strong>"
+        assert said in sec
+    if _has("loopcheck.weakgrid") and _has("loopcheck.grid_plot"):
+        sec = _section(rep.html, "weakgrid")
+        assert "id='fig-weakgrid'" in sec and "Stable Lg intervals" in sec
+        assert "<td class='n'>0 H</td>" in sec and "<td class='n'>1.5 mH</td>" in sec  # both ends of the range
+    if _has("loopcheck.pick") and _has("loopcheck.pick_plot"):
+        sec = _section(rep.html, "gains")
+        assert "id='fig-pick'" in sec and "Hi interval meeting the targets" in sec
     if _has("loopcheck.firmware"):
         from loopcheck.firmware import controller_sections
 
         sec = _section(rep.html, "gains")
         si = controller_sections(d)
         for part in si.sections:
-            assert f"<td>{part.name}</td>" in sec
+            assert f"<td class='n'>{part.name}</td>" in sec
             for x in part.b + part.a:
-                assert f"<td>{x:.10g}</td>" in sec
+                assert f">{x:.10g}</td>" in sec
         assert "Stored coefficients (fixed, 32 bits)" in sec
         assert "Re-check of the loop" in sec
 
@@ -379,8 +392,13 @@ def test_report_safety_cautions(built):
     assert "lethal voltages" in top  # the short caution stands above the contents too
 
 
-def test_report_escapes_user_text():
+def test_report_escapes_user_text(monkeypatch):
+    import loopcheck.report as rp
     from loopcheck.report import build_report
+
+    # user text sits in the header, the job and the inputs; skip the long analyses
+    keep = {"job", "inputs", "verdict", "safety"}
+    monkeypatch.setattr(rp, "SECTION_BUILDERS", tuple(b for b in rp.SECTION_BUILDERS if b[0] in keep))
 
     text = demo_text(kp=10, hi=12).replace(
         'name = "demo 20 kHz PR"', 'name = "<script>alert(1)</script> & <b>x</b>"'
@@ -405,7 +423,12 @@ def _write_case(tmp_path, text=None, name="case.toml"):
     return p
 
 
-def test_cli_report_writes_one_file(tmp_path):
+def test_cli_report_writes_one_file(tmp_path, monkeypatch):
+    import loopcheck.report as rp
+
+    # the command's wiring; the full build through the command runs in test_report_browser.py
+    keep = {"job", "inputs", "verdict", "frequency", "safety"}
+    monkeypatch.setattr(rp, "SECTION_BUILDERS", tuple(b for b in rp.SECTION_BUILDERS if b[0] in keep))
     case = _write_case(tmp_path)
     out = tmp_path / "out" / "r.html"
     res = CliRunner().invoke(app, ["report", str(case), "-o", str(out), "--quiet"], env=ENV)

@@ -70,12 +70,7 @@ def _run(args, tmp_path, name):
     return res
 
 
-@pytest.fixture(scope="module")
-def report_file(tmp_path_factory):
-    from loopcheck.casefile import case_from_string
-    from loopcheck.report import build_report
-
-    text = """
+CASE_TEXT = """
 name = "browser demo: 16 kHz PR, grid-side feedback"
 description = "invented demo design for the browser test"
 [filter]
@@ -87,6 +82,9 @@ R2 = "15 mOhm"
 [grid]
 f  = "50 Hz"
 Lg = "0.2 mH"
+Lg_range = ["0 mH", "1 mH"]
+S = "15 kVA"
+V = "400 V"
 [sampling]
 fs = "16 kHz"
 delay = 1
@@ -97,12 +95,25 @@ Kp = "8 V/A"
 Kr = "600 V/A/s"
 harmonics = [5]
 Hi = "9 V/A"
+[pwm]
+dc_link = "700 V"
 """
+
+
+@pytest.fixture(scope="module")
+def report_file(tmp_path_factory):
+    """The report of an invented demo case, written by the real command."""
+    from typer.testing import CliRunner
+
+    from loopcheck.cli import app
+
     d = tmp_path_factory.mktemp("report")
-    rep = build_report(case_from_string(text, "browser-demo.toml"))
+    case = d / "browser-demo.toml"
+    case.write_text(CASE_TEXT, encoding="utf-8")
     path = d / "report.html"
-    path.write_text(rep.html, encoding="utf-8")
-    return path, rep
+    res = CliRunner().invoke(app, ["report", str(case), "-o", str(path), "-q"], env={"COLUMNS": "200", "NO_COLOR": "1"})
+    assert res.exit_code == 0, res.output
+    return path, path.read_text(encoding="utf-8")
 
 
 class _Body(HTMLParser):
@@ -125,9 +136,9 @@ class _Body(HTMLParser):
 def test_browser_renders_every_section_and_decodes_every_image(report_file, tmp_path):
     from loopcheck.report import SECTION_IDS
 
-    path, rep = report_file
+    path, html_text = report_file
     probe = tmp_path / "probe.html"
-    probe.write_text(rep.html.replace("</body>", CHECK_SCRIPT + "</body>"), encoding="utf-8")
+    probe.write_text(html_text.replace("</body>", CHECK_SCRIPT + "</body>"), encoding="utf-8")
     res = _run(["--virtual-time-budget=5000", "--dump-dom", probe.as_uri()], tmp_path, "dom")
     assert res.returncode == 0, res.stderr.decode(errors="replace")[-2000:]
     dom = res.stdout.decode("utf-8")
