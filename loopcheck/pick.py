@@ -476,7 +476,7 @@ def pick_gain(design: Design, Lg_range_H: tuple[float, float] | None = None, spe
 
 
 def _message(design, names, prob, targets, hi_range, lo, hi, h_best, kp, v, index, worst, verified, intervals, scan):
-    where_all = (f"at every Lg in {_fmt_lg(lo)}..{_fmt_lg(hi)}"
+    where_all = ((f"at every Lg in {_fmt_lg(lo)}..{_fmt_lg(hi)}" if hi > lo else f"at Lg = {_fmt_lg(lo)}")
                  + (f" and all {len(names) - 1} tolerance corners" if len(names) > 1 else ""))
     rng = f"{hi_range[0]:.4g}..{hi_range[1]:.4g} V/A"
     if not math.isfinite(v):

@@ -675,17 +675,80 @@ def shortfalls(m: PointMargins, t: Targets) -> list[str]:
 # exact stable Lg intervals
 # ---------------------------------------------------------------------------
 
-#: An interval is refined when an eigenvalue that stays on one side of the
-#: unit circle moves (between the two samples) by more than 1/SAFETY of its
-#: combined distance to the circle at both ends.
+#: An interval is refined when some closed-loop eigenvalue's path may bend
+#: across the unit circle between two samples: its estimated deviation from
+#: the straight chord, times SAFETY, reaches the chord's distance to the
+#: circle (see :func:`_needs_refinement`).
 _SAFETY = 4.0
-#: ... or when any eigenvalue moves farther than this [-] (keeps the
-#: chord-versus-path approximation honest).
+#: ... or when any eigenvalue moves farther than this between samples [-]
+#: (keeps the local curvature estimate honest).
 _MAX_STEP = 0.05
 #: Smallest refinement width, relative to the Lg range.
 _MIN_WIDTH_REL = 1e-7
 #: Cap on samples per variant (the scan reports when it was reached).
 _MAX_SAMPLES = 4000
+
+
+def _match(Ea, Eb):
+    """For each eigenvalue of Ea [k, m], its nearest neighbour in Eb [k, m]."""
+    j = np.argmin(np.abs(Ea[:, :, None] - Eb[:, None, :]), axis=2)
+    return np.take_along_axis(Eb, j, axis=1), j
+
+
+def _segment_min_modulus(p, q):
+    """Smallest |z| on the straight segments from p to q (arrays)."""
+    d = q - p
+    dd = np.abs(d) ** 2
+    with np.errstate(all="ignore"):
+        t = np.where(dd > 0, -np.real(np.conj(p) * d) / dd, 0.0)
+    t = np.clip(t, 0.0, 1.0)
+    return np.abs(p + t * d)
+
+
+def _needs_refinement(x, E, tol):
+    """Per interval between consecutive samples x [S] with closed-loop
+    eigenvalues E [S, m]: can an eigenvalue cross the unit circle and come
+    back (or the reverse) between the two samples unseen?
+
+    The unit disc is convex, so the straight chord between two eigenvalue
+    positions inside the circle stays inside, and its distance to the
+    circle is 1 - max(|a|, |b|); for two positions outside, the distance is
+    min|z| on the chord minus 1. The actual path deviates from the chord by
+    about |lambda''| h^2 / 8 (h the Lg step, lambda'' estimated from the
+    second divided difference over the neighbouring samples, nearest-
+    neighbour matching). Refine when SAFETY times that deviation reaches
+    the distance, or when any eigenvalue moves more than _MAX_STEP.
+    Eigenvalues that do cross (inside at one end, outside at the other) are
+    located by the bisection instead."""
+    S = x.size
+    Ea, Eb = E[:-1], E[1:]
+    Enext, jn = _match(Ea, Eb)  # eigenvalue i of sample k at sample k+1
+    h = np.diff(x)[:, None]
+    chord = np.abs(Enext - Ea)
+    need = np.any(chord > _MAX_STEP, axis=1)
+    curv = np.full(Ea.shape, np.inf)
+    if S >= 3:
+        Eprev, _ = _match(E[1:-1], E[:-2])  # sample k's eigenvalues matched at k-1, k = 1..S-2
+        En2 = Enext[1:]  # sample k's eigenvalues at k+1, k = 1..S-2
+        hl = (x[1:-1] - x[:-2])[:, None]
+        hr = (x[2:] - x[1:-1])[:, None]
+        d2 = np.abs(2.0 * ((En2 - E[1:-1]) / hr - (E[1:-1] - Eprev) / hl) / (hl + hr))  # at samples 1..S-2
+        c_left = np.full(Ea.shape, np.nan)  # curvature at the interval's left sample
+        c_left[1:] = d2
+        c_right = np.full(Ea.shape, np.nan)  # at the right sample, mapped to the left sample's order
+        c_right[:-1] = np.take_along_axis(d2, jn[:-1], axis=1)
+        curv = np.fmax(c_left, c_right)
+        curv = np.where(np.isnan(curv), np.inf, curv)
+    dev = curv * h**2 / 8.0
+    ma, mb = np.abs(Ea), np.abs(Enext)
+    inside_a, inside_b = ma < 1.0 - tol, mb < 1.0 - tol
+    margin = np.where(inside_a & inside_b, 1.0 - np.maximum(ma, mb), np.inf)
+    out = ~inside_a & ~inside_b
+    margin = np.where(out, _segment_min_modulus(Ea, Enext) - 1.0, margin)
+    # infinite curvature (not yet estimable): fall back to the chord itself
+    dev = np.where(np.isfinite(dev), dev, chord)
+    risky = (_SAFETY * dev >= margin) & (chord > 1e-13)
+    return need | np.any(risky, axis=1)
 
 
 @dataclass(frozen=True)
@@ -718,23 +781,6 @@ def _pairs_eigs(design, values: ComponentValues, Hi, Kp, fidx, Lg):
     return eig
 
 
-def _needs_refinement(Ea, Eb, tol):
-    """Per interval: does any eigenvalue move too far for the samples to
-    prove that nothing crossed the unit circle in between? Ea, Eb [k, m]."""
-    D = np.abs(Ea[:, :, None] - Eb[:, None, :])
-    need = np.zeros(Ea.shape[0], bool)
-    for X, Y, ax in ((Ea, Eb, 2), (Eb, Ea, 1)):
-        j = np.argmin(D, axis=ax)
-        disp = np.min(D, axis=ax)
-        mx = np.abs(X)
-        my = np.abs(np.take_along_axis(Y, j, axis=1))
-        cross = (mx < 1.0 - tol) != (my < 1.0 - tol)
-        dist = np.abs(1.0 - mx) + np.abs(1.0 - my)
-        risky = ~cross & (_SAFETY * disp >= dist) & (disp > 1e-12)
-        need |= np.any(risky | (disp > _MAX_STEP), axis=1)
-    return need
-
-
 def stable_lg_intervals(design: Design, Lg_range_H: tuple[float, float], values: ComponentValues | None = None,
                         Hi_V_per_A=None, Kp_V_per_A=None, *, n_initial: int = 41, extra_points=(),
                         tol: float = TOLERANCE, progress: Progress | None = None) -> list[LgScan]:
@@ -746,14 +792,15 @@ def stable_lg_intervals(design: Design, Lg_range_H: tuple[float, float], values:
 
     Method: the closed-loop eigenvalues are sampled on ``n_initial`` evenly
     spaced Lg values (plus ``extra_points``, e.g. the critical crossing).
-    A closed-loop pole can leave and re-enter the unit disc between two
-    samples only by travelling at least its distance to the circle at both
-    samples, so every interval is halved while some pole moves (matched to
-    its nearest neighbour) by more than 1/4 of that distance, or by more
-    than 0.05 (keeps the straight-chord estimate of the path valid), down to
-    1e-7 of the range. Where the verdict changes between neighbours, the
-    crossing is located by bisection on the spectral radius minus one
-    (48 halvings). Stable means spectral radius < 1 - ``tol``."""
+    Between two samples an eigenvalue path can only reach the unit circle
+    unseen by bending away from the straight chord (the disc is convex), so
+    every interval is halved while some eigenvalue's estimated bend
+    (second divided difference x step^2 / 8, times 4 for safety) reaches the
+    chord's distance to the circle, or while some eigenvalue moves more than
+    0.05 per step, down to 1e-7 of the range (see :func:`_needs_refinement`).
+    Where the verdict changes between neighbours, the crossing is located
+    by bisection on the spectral radius minus one. Stable means spectral
+    radius < 1 - ``tol``."""
     lo, hi = float(Lg_range_H[0]), float(Lg_range_H[1])
     values = ComponentValues.nominal(design, (1,)) if values is None else values
     F = values.size
@@ -780,7 +827,7 @@ def stable_lg_intervals(design: Design, Lg_range_H: tuple[float, float], values:
         new_f, new_x = [], []
         for f in range(F):
             x, Ef = X[f], EE[f]
-            need = _needs_refinement(Ef[:-1], Ef[1:], tol) & (np.diff(x) > min_w)
+            need = _needs_refinement(x, Ef, tol) & (np.diff(x) > min_w)
             if need.any():
                 if x.size + need.sum() > _MAX_SAMPLES:
                     capped[f] = True
