@@ -245,27 +245,23 @@ def bode_figure(design, analysis, loop=None, curve: LoopCurve | None = None, tit
         return float(np.interp(fx, f, phase))
 
     # gain crossovers with phase margins
-    prev_f, side = None, 1
+    # gain crossovers: numbered markers, an arrow to the nearest -180 deg line,
+    # and the phase margin of each in the legend (no text over the curves)
     for i, co in enumerate(analysis.crossovers):
-        # labels of crossovers closer than a quarter decade go to alternate sides
-        close = prev_f is not None and math.log10(co.frequency_hz / prev_f) < 0.25
-        side = -side if close else 1
-        prev_f = co.frequency_hz
         ph = unwrapped_at(co.frequency_hz)
         ref = _nearest_odd180(ph)
-        ax_m.plot(co.frequency_hz, 0.0, "o", ms=7, mfc="white", mec=c["vermillion"], mew=2.0,
-                  label="gain crossover |L| = 1 (phase margin)" if i == 0 else None, zorder=5)
-        ax_p.plot(co.frequency_hz, ph, "o", ms=7, mfc="white", mec=c["vermillion"], mew=2.0, zorder=5)
+        mk = dict(marker="o", ms=7, mfc="white", mec=c["vermillion"], mew=2.0, ls="none", zorder=5)
+        ax_m.plot(co.frequency_hz, 0.0, **mk,
+                  label=f"gain crossover {i + 1}: {_hz(co.frequency_hz)}, phase margin "
+                  f"{abs(co.phase_margin_deg):.1f} deg ({co.reaches_minus1_with})")
+        ax_p.plot(co.frequency_hz, ph, **mk)
         ax_p.annotate(
             "", xy=(co.frequency_hz, ref), xytext=(co.frequency_hz, ph),
             arrowprops=dict(arrowstyle="->", color=c["vermillion"], lw=1.3),
         )
-        ax_p.annotate(
-            f"PM {abs(co.phase_margin_deg):.1f} deg\n({co.reaches_minus1_with})\n{_hz(co.frequency_hz)}",
-            xy=(co.frequency_hz, 0.5 * (ph + ref)), xytext=(6 * side, 0), textcoords="offset points",
-            fontsize=8, color="#9c3f00", va="center", ha="left" if side > 0 else "right",
-            bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85),
-        )
+        for ax, y in ((ax_m, 0.0), (ax_p, ph)):
+            ax.annotate(str(i + 1), xy=(co.frequency_hz, y), xytext=(0, 7), textcoords="offset points",
+                        ha="center", va="bottom", fontsize=8, fontweight="bold", color="#9c3f00")
 
     # -180 deg crossings with the gain factor k = -1/L
     for i, pc in enumerate(analysis.phase_crossings):
@@ -299,6 +295,8 @@ def bode_figure(design, analysis, loop=None, curve: LoopCurve | None = None, tit
         handles += h
         labels += lab
     fig.legend(handles, labels, loc="outside lower center", ncols=2, fontsize=8, frameon=False)
+    if not analysis.crossovers:
+        ax_m.text(0.99, 0.03, "no gain crossover", transform=ax_m.transAxes, ha="right", fontsize=8)
     if title is None:
         name = design.name or "design"
         title = f"Bode plot of the loop gain: {name}  ({analysis.verdict.upper()})"

@@ -228,13 +228,11 @@ def nyquist_figure(
     for i, co in enumerate(analysis.crossovers):
         v = loop_value_at(curve, co.frequency_hz, fs)
         ax.plot(v.real, v.imag, "o", ms=7, mfc="white", mec=c["vermillion"], mew=2.0, zorder=5,
-                label="gain crossover (phase margin)" if i == 0 else None)
-        right = v.real > 0.5 * (ZOOM_RE[0] + ZOOM_RE[1]) + 0.5  # keep the label inside the window
-        ax.annotate(f"PM {abs(co.phase_margin_deg):.1f} deg {co.reaches_minus1_with}\n{co.frequency_hz:.4g} Hz",
-                    xy=(v.real, v.imag), xytext=(-8 if right else 8, 6 if v.imag >= 0 else -6),
-                    textcoords="offset points", ha="right" if right else "left",
-                    fontsize=7.5, color="#9c3f00", va="bottom" if v.imag >= 0 else "top", clip_on=True,
-                    bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
+                label=f"gain crossover {i + 1}: {co.frequency_hz:.4g} Hz, phase margin "
+                f"{abs(co.phase_margin_deg):.1f} deg ({co.reaches_minus1_with})")
+        ax.annotate(str(i + 1), xy=(v.real, v.imag), xytext=(7, 5 if v.imag >= 0 else -5), textcoords="offset points",
+                    fontsize=8, fontweight="bold", color="#9c3f00", va="bottom" if v.imag >= 0 else "top",
+                    clip_on=True)
     first = True
     for pc in analysis.phase_crossings:
         x = -1.0 / pc.factor if pc.factor != 0 else -np.inf
@@ -255,7 +253,7 @@ def nyquist_figure(
     ax.grid(True, color="#e2e2e2", lw=0.6)
     ax.text(0.015, 0.985, count_text(analysis), transform=ax.transAxes, va="top", ha="left", fontsize=8,
             family="monospace", bbox=dict(boxstyle="round,pad=0.4", fc="white", ec="#555555", alpha=0.93), zorder=8)
-    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=3, fontsize=8, frameon=False)
+    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=2, fontsize=8, frameon=False)
 
     # --- compressed full view ---------------------------------------------
     if axf is not None:
