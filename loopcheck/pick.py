@@ -52,6 +52,7 @@ from loopcheck.weakgrid import (
     _split_c,
     binding_target,
     critical_crossing_lg,
+    discrete_plants,
     evaluate_points,
     robustness_index,
     shortfalls,
@@ -178,14 +179,14 @@ class _Problem:
         self.Lg = np.tile(Lg, F)
         self.vals = values.take(self.fam)
         self.values = values
-        self.calls = 0
+        # the plants depend on the variant and Lg only: discretise them once
+        self.plants = discrete_plants(design, self.Lg[None, :], self.vals.reshape((1, self.Lg.size)))
 
     def margins(self, Hi, Kp, progress=None) -> PointMargins:
         Hi = np.asarray(Hi, float).reshape(-1, 1)
         Kp = np.asarray(Kp, float).reshape(-1, 1)
-        self.calls += 1
         return evaluate_points(self.design, self.Lg[None, :], self.vals.reshape((1, self.Lg.size)), Hi, Kp,
-                               progress=progress)
+                               progress=progress, plants=self.plants)
 
     def worst(self, Hi, Kp, progress=None):
         m = self.margins(Hi, Kp, progress)

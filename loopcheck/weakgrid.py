@@ -83,6 +83,7 @@ __all__ = [
     "binding_target",
     "closed_loop_eigenvalues",
     "critical_crossing_lg",
+    "discrete_plants",
     "evaluate_points",
     "monte_carlo",
     "parse_targets",
@@ -247,12 +248,18 @@ class _Rows:
     shape: tuple[int, ...]
 
 
-def _rows(design: Design, Lg_H, values: ComponentValues | None, Hi_V_per_A, Kp_V_per_A) -> _Rows:
-    values = _values(design, values)
+def discrete_plants(design: Design, Lg_H, values: ComponentValues | None = None):
+    """Exact sampled plants (ZOH + computation delay) of every variant x Lg
+    [H] (broadcast), for reuse in :func:`evaluate_points` (``plants=``) when
+    only gains change between calls."""
+    return _discrete_plants(design, _values(design, values), Lg_H)
+
+
+def _rows(design: Design, Lg_H, values: ComponentValues | None, Hi_V_per_A, Kp_V_per_A, plants=None) -> _Rows:
     ctl = design.control
     Hi = np.asarray(ctl.Hi_V_per_A if Hi_V_per_A is None else Hi_V_per_A, dtype=float)
     Kp = np.asarray(ctl.Kp_V_per_A if Kp_V_per_A is None else Kp_V_per_A, dtype=float)
-    dp = _discrete_plants(design, values, Lg_H)
+    dp = plants if plants is not None else _discrete_plants(design, _values(design, values), Lg_H)
     pshape = dp.A.shape[:-2]
     shape = np.broadcast_shapes(pshape, Hi.shape, Kp.shape)
     Ai = close_damping_loop(dp, Hi)
@@ -577,7 +584,7 @@ def _chunk_margins(design: Design, rows: _Rows, sl: slice, stable_rows: np.ndarr
 
 def evaluate_points(design: Design, Lg_H, values: ComponentValues | None = None, Hi_V_per_A=None,
                     Kp_V_per_A=None, *, margins: bool = True, chunk_rows: int = 600,
-                    progress: Progress | None = None, tol: float = TOLERANCE) -> PointMargins:
+                    progress: Progress | None = None, tol: float = TOLERANCE, plants=None) -> PointMargins:
     """Verdict and margins at every point of a broadcast batch.
 
     ``values`` (component variants, see :class:`ComponentValues`; None: the
@@ -585,10 +592,12 @@ def evaluate_points(design: Design, Lg_H, values: ComponentValues | None = None,
     [V/A] (None: the design's) broadcast against each other; the result has
     the broadcast shape. The plant is discretised once per variant x Lg and
     the damping gain and Kp are applied afterwards, so sweeping gains costs
-    only eigenvalues and frequency responses. ``progress(fraction)`` is
-    called after each chunk of ``chunk_rows`` points. See the module
-    docstring for the definitions."""
-    rows = _rows(design, Lg_H, values, Hi_V_per_A, Kp_V_per_A)
+    only eigenvalues and frequency responses. ``plants``: the result of
+    :func:`discrete_plants` for the same ``Lg_H`` and ``values`` (skips
+    the matrix exponentials). ``progress(fraction)`` is called after each
+    chunk of ``chunk_rows`` points. See the module docstring for the
+    definitions."""
+    rows = _rows(design, Lg_H, values, Hi_V_per_A, Kp_V_per_A, plants)
     N = rows.Kp.size
     Ts = design.sampling.Ts_s
     to_hz = 1.0 / (2.0 * math.pi * Ts)
@@ -972,7 +981,8 @@ def _refine_worst(design, values1: ComponentValues, Hi, Kp, targets, x, idx, rad
 
     best_x, best_v = x[idx], obj(x[idx])
     if b > a:
-        res = minimize_scalar(obj, bounds=(a, b), method="bounded", options={"xatol": 1e-9 * max(hi - lo, 1e-12)})
+        res = minimize_scalar(obj, bounds=(a, b), method="bounded",
+                              options={"xatol": 1e-5 * max(hi - lo, 1e-12), "maxiter": 30})
         if res.fun < best_v:
             best_x = float(res.x)
     return min(max(best_x, lo), hi)
