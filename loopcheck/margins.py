@@ -58,7 +58,8 @@ def _finite(x):
 
 def gain_crossovers(L: LoopFn, w: np.ndarray, Lw: np.ndarray) -> list[float]:
     """All w [rad/sample] in the grid span where |L(e^{jw})| = 1."""
-    g = np.log(np.abs(Lw))
+    with np.errstate(all="ignore"):  # poles/zeros exactly on the grid: inf/nan, skipped below
+        g = np.log(np.abs(Lw))
     out = []
     s = np.sign(g)
     idx = np.nonzero((s[:-1] * s[1:] < 0) & _finite(g[:-1]) & _finite(g[1:]))[0]
@@ -73,7 +74,8 @@ def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1
 
     Poles and zeros of L on the circle flip the sign of Im L without L being
     real there; such brackets are rejected by checking |Im L|/|L| at the root."""
-    h = Lw.imag / np.abs(Lw)
+    with np.errstate(all="ignore"):  # poles/zeros exactly on the grid: inf/nan, skipped below
+        h = Lw.imag / np.abs(Lw)
     s = np.sign(h)
     idx = np.nonzero((s[:-1] * s[1:] < 0) & _finite(h[:-1]) & _finite(h[1:]))[0]
 
@@ -100,7 +102,8 @@ def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1
 
 def sensitivity_peak(L: LoopFn, w: np.ndarray, Lw: np.ndarray) -> tuple[float, float]:
     """max |1/(1 + L)| and the w [rad/sample] where it occurs (refined)."""
-    S = np.abs(1.0 / (1.0 + Lw))
+    with np.errstate(all="ignore"):  # poles exactly on the grid give nan; set to 0 below
+        S = np.abs(1.0 / (1.0 + Lw))
     S[~np.isfinite(S)] = 0.0
     i = int(np.argmax(S))
     lo, hi = w[max(i - 1, 0)], w[min(i + 1, w.size - 1)]
