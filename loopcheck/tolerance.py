@@ -265,7 +265,10 @@ def _draw_deviation(c: ComponentTolerance, n: int, rng: np.random.Generator) -> 
 def draw_units(design, spec: ToleranceSpec, n: int, rng: np.random.Generator) -> tuple[ComponentValues, dict[str, np.ndarray]]:
     """Draw ``n`` units: component values and the deviations drawn.
 
-    Components are independent; ``rng`` (a seeded
+    Components are independent and drawn one after the other in the order
+    of ``spec.components`` (the parser keeps the fixed order of
+    :data:`COMPONENTS`, L1, C, L2, R1, R2, Rd, Cd, Ld, whatever the order of
+    the keys in the file); ``rng`` (a seeded
     :class:`numpy.random.Generator`) makes the draw reproducible. Returns
     ``(values, deviations)`` with ``deviations[name]`` [-] per unit."""
     base = ComponentValues.nominal(design, (n,))

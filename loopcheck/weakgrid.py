@@ -1094,7 +1094,8 @@ def monte_carlo(design: Design, spec: ToleranceSpec, Lg_range_H: tuple[float, fl
     confidence interval (Clopper-Pearson, and Wilson for comparison).
 
     Component deviations are drawn first (one component after the other,
-    in table order, see :func:`loopcheck.tolerance.draw_units`), then Lg
+    in the fixed order L1, C, L2, R1, R2, Rd, Cd, Ld whatever the order of
+    the keys in the file, see :func:`loopcheck.tolerance.draw_units`), then Lg
     uniformly over ``Lg_range_H`` [H], all from
     ``numpy.random.default_rng(seed)``: the same seed gives the same units.
 
