@@ -98,8 +98,8 @@ def map_command(
 
 # --- rendering of the results (text only; numpy imported lazily) -------------
 
-#: CSV number format: 17 significant digits, so every row can be recomputed exactly.
-_FMT = "%.17g"
+#: CSV numbers are written with repr(): the shortest text that reads back as
+#: the same double, so every row can be recomputed exactly.
 
 
 def _metric_columns(smap) -> list[tuple[str, object]]:
@@ -118,30 +118,28 @@ def csv_text(smap) -> str:
     varies across the map under its case-file name in SI base units, then
     ``stable`` (0/1), ``spectral_radius`` and the requested metrics (empty
     where undefined, ``inf`` for an unbounded upper gain margin)."""
-    import io
-
-    import numpy as np
-
     names = list(smap.parameters)
     cols = [smap.parameters[k].T.ravel() for k in names]
     names += ["stable", "spectral_radius"]
-    cols += [smap.stable.T.ravel().astype(int), smap.spectral_radius.T.ravel()]
+    cols += [smap.stable.T.ravel(), smap.spectral_radius.T.ravel()]
     for k, arr in _metric_columns(smap):
         names.append(k)
         cols.append(arr.T.ravel())
-    fmts = [_FMT] * (len(names) - len(_metric_columns(smap)) - 2) + ["%d", _FMT] + [_FMT] * len(_metric_columns(smap))
-    buf = io.StringIO()
-    buf.write(",".join(names) + "\n")
-    block = 20000
-    n = cols[0].size
-    for s in range(0, n, block):
-        parts = [np.char.mod(f, c[s : s + block]) for f, c in zip(fmts, cols)]
-        rows = parts[0]
-        for p in parts[1:]:
-            rows = np.char.add(np.char.add(rows, ","), p)
-        text = "\n".join(rows.tolist())
-        buf.write(text.replace("nan", "") + "\n")
-    return buf.getvalue()
+    import numpy as np
+
+    text_cols = []
+    for c in cols:
+        if c.dtype == bool:
+            text_cols.append(np.array(["0", "1"])[c.astype(int)].tolist())
+            continue
+        uniq, inv = np.unique(c, return_inverse=True)
+        if uniq.size < c.size // 4:  # parameters repeat along one axis: format each value once
+            words = np.array(["" if v != v else repr(v) for v in uniq.tolist()], dtype=object)
+            text_cols.append(words[inv.ravel()].tolist())
+        else:
+            text_cols.append(["" if v != v else repr(v) for v in c.tolist()])
+    rows = map(",".join, zip(*text_cols))
+    return ",".join(names) + "\n" + "\n".join(rows) + "\n"
 
 
 def _axis_record(ax) -> dict:

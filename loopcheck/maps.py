@@ -1007,9 +1007,11 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
 _MARGIN_CHUNK = 800
 #: Base frequency grid [rad/sample]: log-spaced part and linear part.
 _N_LOG, _N_LIN = 500, 1000
+#: Local maxima of |1/(1+L)| refined per point.
+_N_PEAKS = 4
 #: Relative offsets of the extra frequencies around open-loop poles near the
 #: unit circle (resonances, resonators).
-_CLUSTER = np.geomspace(1e-7, 3e-2, 14)
+_CLUSTER = np.geomspace(1e-9, 3e-2, 40)
 
 
 class _LoopData:
@@ -1218,21 +1220,30 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         below = kv < 1.0
         np.maximum.at(lower, kp[below], kv[below])
         np.minimum.at(upper, kp[~below], kv[~below])
-        # sensitivity peak, refined by golden-section search around the grid maximum
+        # sensitivity peak: golden-section search around the largest few
+        # local maxima on the grid (a narrow peak beside a resonator can sit
+        # between grid points, below another local maximum)
         Sv = np.abs(1.0 / (1.0 + L))
         Sv[~np.isfinite(Sv)] = 0.0
-        j = np.argmax(Sv, axis=1)
-        lo = w[rows, np.maximum(j - 1, 0)]
-        hi = w[rows, np.minimum(j + 1, w.shape[1] - 1)]
-        best_w = w[rows, j]
-        best = Sv[rows, j]
+        F = Sv.shape[1]
+        peak = np.zeros_like(Sv, dtype=bool)
+        peak[:, 1:-1] = (Sv[:, 1:-1] >= Sv[:, :-2]) & (Sv[:, 1:-1] >= Sv[:, 2:])
+        peak[:, 0] = Sv[:, 0] >= Sv[:, 1]
+        peak[:, -1] = Sv[:, -1] >= Sv[:, -2]
+        cand = np.argsort(np.where(peak, -Sv, np.inf), axis=1)[:, :_N_PEAKS]
+        rr = np.repeat(rows, cand.shape[1])
+        jj = cand.ravel()
+        lo = w[rr, np.maximum(jj - 1, 0)]
+        hi = w[rr, np.minimum(jj + 1, F - 1)]
+        best_w = w[rr, jj]
+        best = Sv[rr, jj]
         gr = (math.sqrt(5.0) - 1.0) / 2.0
         a, b = lo.copy(), hi.copy()
         c = b - gr * (b - a)
         d = a + gr * (b - a)
 
         def fs_(x):
-            val = np.abs(1.0 / (1.0 + L1(rows, x)))
+            val = np.abs(1.0 / (1.0 + L1(rr, x)))
             return np.where(np.isfinite(val), val, 0.0)
 
         fc, fd = fs_(c), fs_(d)
@@ -1250,8 +1261,10 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         xm = 0.5 * (a + b)
         fm = fs_(xm)
         take = fm > best
-        best = np.where(take, fm, best)
-        best_w = np.where(take, xm, best_w)
+        best = np.where(take, fm, best).reshape(S, -1)
+        best_w = np.where(take, xm, best_w).reshape(S, -1)
+        k = np.argmax(best, axis=1)
+        best, best_w = best[rows, k], best_w[rows, k]
     return pm_min, lower, upper, best, best_w
 
 
