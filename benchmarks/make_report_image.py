@@ -42,8 +42,13 @@ def main() -> int:
     from loopcheck.casefile import read_case
     from loopcheck.report import build_report
 
-    rep = build_report(read_case(args.case))
-    out = Path(args.output)
+    # show the case path relative to the repository, never a machine path
+    case = Path(args.case).resolve()
+    out = Path(args.output).resolve()
+    if case.is_relative_to(ROOT):
+        os.chdir(ROOT)
+        case = case.relative_to(ROOT)
+    rep = build_report(read_case(str(case)))
     out.parent.mkdir(parents=True, exist_ok=True)
     with tempfile.TemporaryDirectory() as tmp:
         html = Path(tmp) / "report.html"
