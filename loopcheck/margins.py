@@ -56,6 +56,30 @@ def _finite(x):
     return np.isfinite(x)
 
 
+class _PoleOnCircle(Exception):
+    """Raised inside a root search when L is not finite (or zero) at the
+    trial point, i.e. the search landed on a pole or zero of L on the circle."""
+
+
+def _finite_value(L: LoopFn, x: float) -> complex:
+    """L(e^{jx}), raising _PoleOnCircle where it is infinite, nan or zero."""
+    with np.errstate(all="ignore"):
+        v = L(np.array([np.exp(1j * x)]))[0]
+    if not np.isfinite(v) or v == 0:
+        raise _PoleOnCircle
+    return v
+
+
+def _bracketed_root(f, a: float, b: float):
+    """brentq on [a, b], or None when the bracket's sign change comes from a
+    pole or zero of L on the circle that the search runs into (there is no
+    crossing then: the sign flips through infinity or zero)."""
+    try:
+        return brentq(f, a, b, xtol=1e-14, rtol=1e-13)
+    except _PoleOnCircle:
+        return None
+
+
 def gain_crossovers(L: LoopFn, w: np.ndarray, Lw: np.ndarray) -> list[float]:
     """All w [rad/sample] in the grid span where |L(e^{jw})| = 1."""
     with np.errstate(all="ignore"):  # poles/zeros exactly on the grid: inf/nan, skipped below
@@ -63,9 +87,11 @@ def gain_crossovers(L: LoopFn, w: np.ndarray, Lw: np.ndarray) -> list[float]:
     out = []
     s = np.sign(g)
     idx = np.nonzero((s[:-1] * s[1:] < 0) & _finite(g[:-1]) & _finite(g[1:]))[0]
-    f = lambda x: float(np.log(np.abs(L(np.array([np.exp(1j * x)]))[0])))  # noqa: E731
+    f = lambda x: float(np.log(np.abs(_finite_value(L, x))))  # noqa: E731
     for i in idx:
-        out.append(brentq(f, w[i], w[i + 1], xtol=1e-14, rtol=1e-13))
+        r = _bracketed_root(f, w[i], w[i + 1])
+        if r is not None:
+            out.append(r)
     return out
 
 
@@ -80,12 +106,14 @@ def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1
     idx = np.nonzero((s[:-1] * s[1:] < 0) & _finite(h[:-1]) & _finite(h[1:]))[0]
 
     def f(x):
-        v = L(np.array([np.exp(1j * x)]))[0]
+        v = _finite_value(L, x)
         return float(v.imag / abs(v))
 
     roots = []
     for i in idx:
-        r = brentq(f, w[i], w[i + 1], xtol=1e-14, rtol=1e-13)
+        r = _bracketed_root(f, w[i], w[i + 1])
+        if r is None:
+            continue
         v = L(np.array([np.exp(1j * r)]))[0]
         if np.isfinite(v) and abs(v.imag) <= tol * abs(v) and abs(v) > 0:
             roots.append((r, float(v.real)))

@@ -376,3 +376,22 @@ def test_pole_exactly_on_the_frequency_grid_gives_no_runtime_warning():
     _, CL = reference_loop(d)
     assert a.spectral_radius == pytest.approx(spectral_radius(CL), rel=1e-8)
     assert a.nyquist_consistent
+
+
+def test_resonator_pole_at_a_bracket_midpoint_does_not_crash():
+    # Found by the property test: a ZOH-discretised resonator puts a pole on
+    # the circle at w0 Ts, the frequency grid brackets it symmetrically, and
+    # the root search on Im L landed exactly on the pole (L = nan there) and
+    # raised ValueError out of analyse. The sign change of Im L across a pole
+    # is no crossing; analyse must skip it and agree with the independent
+    # model.
+    d = Design(
+        Filter(1e-3, 1.9740105587227124e-05, 1e-3), Grid(50.0), Sampling(6407.96875, 1.0),
+        Control("grid", "PR", Kp_V_per_A=1.28159375, Kr=57.671718750000004, resonator="zoh"),
+    )
+    a = analyse(d)
+    L, CL = reference_loop(d)
+    assert a.spectral_radius == pytest.approx(spectral_radius(CL), rel=1e-8)
+    assert a.nyquist_consistent
+    assert a.stable == (spectral_radius(CL) < 1 - 1e-9)
+    assert a.stable == any(lo <= 1 and (hi is None or hi >= 1) for lo, hi in a.stable_gain_intervals)
