@@ -109,6 +109,14 @@ class ToleranceSpec:
 
     components: tuple[ComponentTolerance, ...] = ()
 
+    def __post_init__(self) -> None:
+        names = [c.name for c in self.components]
+        for n in names:
+            if n not in COMPONENTS:
+                raise ValueError(f"unknown component {n!r}; known: {', '.join(COMPONENTS)}")
+        if len(set(names)) != len(names):
+            raise ValueError(f"a component has two tolerances: {names}")
+
     def __bool__(self) -> bool:
         return bool(self.components)
 
