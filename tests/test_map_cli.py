@@ -24,7 +24,7 @@ CASE = """\
 name = "invented 14 kHz grid-side PR"
 [filter]
 L1 = "2.0 mH"
-C  = "6.8 uF"
+C  = "10 uF"
 L2 = "0.8 mH"
 R1 = "15 mOhm"
 R2 = "5 mOhm"
@@ -40,7 +40,7 @@ feedback = "grid"
 kind = "PR"
 Kp = "11 V/A"
 Kr = "900 V/A/s"
-Hi = "14 V/A"
+Hi = "9 V/A"
 """
 
 MAP = """
@@ -80,7 +80,8 @@ def test_outputs_figure_csv_json(case, tmp_path):
     assert len(rec["columns"]) == 45
     # the critical ratio for one sample of delay (common practice: fs/6)
     assert rec["critical_ratio"] == pytest.approx(1 / 6)
-    assert rec["design_point"]["y"] == 14.0
+    assert rec["design_point"]["y"] == 9.0
+    assert rec["design_point"]["stable"] is True
     for col in rec["columns"]:
         for a, b in col["stable_y_intervals"]:
             assert -14.0 <= a < b <= 42.0
@@ -277,3 +278,42 @@ def test_only_the_plot_module_imports_matplotlib():
                 mods.add(node.module.split(".")[0])
         assert ("matplotlib" in mods) == (name == "map_plot.py"), name
         assert "click" not in mods
+
+
+def test_figure_reads_on_its_own(tmp_path):
+    # the figure carries units on both axes, the design point, the critical
+    # ratio on an fr/fs axis, the nominal Lg and the Lg range on an Lg axis,
+    # and says how the fr/fs axis moves the resonance
+    from loopcheck.casefile import case_from_string
+    from loopcheck.map_plot import map_figure
+    from loopcheck.map_table import Overrides, map_spec
+    from loopcheck.maps import compute_map
+
+    case = case_from_string(CASE + MAP, "case.toml")
+
+    def texts(fig):
+        out = [t.get_text() for t in fig.texts]
+        for ax in fig.axes:
+            out += [ax.get_xlabel(), ax.get_ylabel(), ax.get_title()]
+            leg = ax.get_legend()
+            if leg is not None:
+                out += [t.get_text() for t in leg.get_texts()]
+        return "\n".join(out)
+
+    spec = map_spec(case, Overrides(x_points=10, y_points=8))
+    t = texts(map_figure(compute_map(case.design, spec)))
+    for needle in (
+        "resonance / sampling frequency fr/fs [-]",
+        "capacitor-current gain Hi [V/A]",
+        "critical fr/fs = 1/(4 delay + 2) = 1/6",
+        "design point (stable)",
+        "scaling the filter capacitor C with fs fixed",
+        "stable: every closed-loop pole inside |z| < 1",
+        "licensed engineering practice",
+    ):
+        assert needle in t
+    spec = map_spec(case, Overrides(x="Lg", y="Kp", x_points=8, y_points=6))
+    t = texts(map_figure(compute_map(case.design, spec)))
+    for needle in ("grid inductance Lg [mH]", "proportional gain Kp [V/A]", "nominal Lg = 0.3 mH", "case Lg range 0..2.5 mH"):
+        assert needle in t
+    assert "critical fr/fs" not in t
