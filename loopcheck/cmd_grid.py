@@ -218,7 +218,7 @@ def format_grid(case, res, scr_of, rows_every: int, mc) -> str:
     if mc is not None:
         L.append("")
         conf = f"{100 * mc.confidence:g} %"
-        L.append(f"Monte Carlo     {mc.n_units} units, seed {mc.seed}, Lg drawn {mc.Lg_distribution}")
+        L.append(f"Monte Carlo     {mc.n_units} units, seed {mc.seed}, Lg {mc.Lg_distribution}")
         L.append(f"  unstable            {mc.n_unstable} = {100 * mc.unstable_fraction:.3g} %   "
                  f"{conf} interval {100 * mc.unstable_ci[0]:.3g} .. {100 * mc.unstable_ci[1]:.3g} % (Clopper-Pearson)")
         L.append(f"  unstable or below targets {mc.n_below_targets} = {100 * mc.below_targets_fraction:.3g} %   "

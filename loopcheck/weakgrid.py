@@ -1129,5 +1129,5 @@ def monte_carlo(design: Design, spec: ToleranceSpec, Lg_range_H: tuple[float, fl
         wilson_interval(n_unst, n_units, confidence),
         n_below / n_units, clopper_pearson_interval(n_below, n_units, confidence),
         wilson_interval(n_below, n_units, confidence),
-        "uniform over the Lg range", worst,
+        "uniform over the range", worst,
     )
