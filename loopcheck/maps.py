@@ -35,19 +35,25 @@ sin(m w)``; dividing by ``sin w`` leaves a Chebyshev series of the second
 kind in ``cos w``, solved with a colleague matrix (Good 1961). Every piece
 between two candidate gains is then classified by the eigenvalues of the
 state-space matrix (never by the polynomial), and every boundary that
-changes the verdict is verified by eigenvalues just beside it; where that
-check fails (ill-conditioned polynomial: very low or very high fr/fs, many
-resonators) the boundary is located by eigenvalue bisection instead (the
-slower exact path).
+changes the verdict is verified by eigenvalues just beside it, or located by
+eigenvalue bisection where that check fails.
+
+The slower exact path: where the polynomial is ill-conditioned (roots
+clustered near z = 1 at very low fr/fs, many resonators, high fs; detected
+by comparing its roots with state-space eigenvalues), the candidate gains
+come from the frequency response instead: with ``A1 = u v^T``,
+``det(zI - A0 - y A1) = det(zI - A0) (1 - y G(z))``, ``G = v^T (zI -
+A0)^{-1} u`` evaluated in modal form, so ``y = 1/G(e^{jw})`` where G is
+real; the radius of such a line comes from eigenvalues at every grid value.
 
 The gridded spectral radius along a gain axis follows the roots of
 ``p(z; y)`` from one grid value to the next with a predictor and Newton
 steps, checked against Newton's identities (sum of roots and sum of squares
 against the coefficients); a failed check re-seeds the roots from a
-companion-matrix eigenvalue problem. Lines where polynomial roots and
-state-space eigenvalues disagree, or where the tracked radius contradicts
-the exact intervals, are recomputed point by point with state-space
-eigenvalues. When neither axis is a gain, every grid point is an eigenvalue
+companion-matrix eigenvalue problem. Lines where the tracked radius contradicts the exact
+intervals take the slower path too; only if even its intervals contradict
+the eigenvalue grid are the boundaries located by bisection between grid
+values (marked "refined"). When neither axis is a gain, every grid point is an eigenvalue
 problem and boundaries are located by bisection between grid points (a
 region thinner than one grid step can then be missed; the map says so per
 column in :attr:`StabilityMap.boundary_method`).
@@ -737,17 +743,16 @@ def _bisect(evaluate, line, a, b, sa, span: float, rel_tol: float = 1e-10):
     return 0.5 * (a + b)
 
 
-def _exact_lines(A0, A1, p0, p1, lo: float, hi: float, tol: float):
-    """Stable intervals along ``A0 + y A1`` for y in [lo, hi], per line, by
-    D-decomposition (candidates from :func:`crossing_gains`, pieces
-    classified by state-space eigenvalues, verdict-changing boundaries
-    verified beside them or located by eigenvalue bisection).
+def _classify(A0, A1, cands: list, lo: float, hi: float, tol: float, method: str = "exact"):
+    """D-decomposition step two: split [lo, hi] of every line at its
+    candidate gains, classify each piece by state-space eigenvalues at its
+    midpoint, and confirm each verdict-changing boundary by eigenvalues
+    2e-6 of the range beside it (else locate it by eigenvalue bisection
+    between the neighbouring midpoints).
 
-    Returns the intervals and, per line, whether the polynomial's roots
-    disagreed with the state-space eigenvalues (the caller then recomputes
-    that line's radius point by point)."""
+    Returns the per-line intervals and, for the caller's checks, the flat
+    piece arrays ``(line, mid, radius_at_mid)``."""
     m = A0.shape[0]
-    cands = crossing_gains(p0, p1)
     span = hi - lo
     edges = []
     for c in cands:
@@ -764,9 +769,6 @@ def _exact_lines(A0, A1, p0, p1, lo: float, hi: float, tol: float):
 
     rad_mid = _radius(A0[line] + mid[:, None, None] * A1[line])
     st = rad_mid < 1.0 - tol
-    pr = _poly_radius(p0[line] + mid[:, None] * p1[line])
-    suspect = np.zeros(m, dtype=bool)
-    suspect[line[np.abs(pr - rad_mid) > 1e-9 * np.maximum(1.0, rad_mid)]] = True
     change = np.nonzero((line[:-1] == line[1:]) & (st[:-1] != st[1:]))[0]
     c = right[change].copy()
     li = line[change]
@@ -782,8 +784,94 @@ def _exact_lines(A0, A1, p0, p1, lo: float, hi: float, tol: float):
     out = []
     for i in range(m):
         b = np.sort(c[order[split[i] : split[i + 1]]])
-        out.append(_LineIntervals(b, bool(st[first[i]]), "exact"))
-    return out, suspect
+        out.append(_LineIntervals(b, bool(st[first[i]]), method))
+    return out, (line, mid, rad_mid)
+
+
+def _exact_lines(A0, A1, p0, p1, lo: float, hi: float, tol: float):
+    """Stable intervals along ``A0 + y A1`` for y in [lo, hi], per line, with
+    the candidate gains from the characteristic polynomial
+    (:func:`crossing_gains`), classified by :func:`_classify`.
+
+    Returns the intervals and, per line, whether the polynomial's roots
+    disagreed with the state-space eigenvalues at the piece midpoints (the
+    caller then takes the slower path for that line)."""
+    lines, (line, mid, rad_mid) = _classify(A0, A1, crossing_gains(p0, p1), lo, hi, tol)
+    pr = _poly_radius(p0[line] + mid[:, None] * p1[line])
+    suspect = np.zeros(A0.shape[0], dtype=bool)
+    suspect[line[np.abs(pr - rad_mid) > 1e-9 * np.maximum(1.0, rad_mid)]] = True
+    return lines, suspect
+
+
+def frequency_crossing_gains(A0: np.ndarray, A1: np.ndarray) -> list[np.ndarray]:
+    """Candidate gains of the lines ``A0 + y A1`` (A1 = u v^T of rank one)
+    from the frequency response instead of the polynomial: with
+    ``G(z) = v^T (zI - A0)^{-1} u``, ``det(zI - A0 - y A1) = det(zI - A0)
+    (1 - y G(z))``, so a root sits on the unit circle at ``y = 1/G(e^{jw})``
+    where G is real (matrix determinant lemma; D-decomposition as in the
+    module docstring). G is evaluated in modal form (state-space solve for
+    ill-conditioned eigenvectors) on a frequency grid clustered around the
+    eigenvalues of A0 near the circle, and the real-axis crossings are
+    refined by regula falsi. Well conditioned where the polynomial is not
+    (many resonators, roots clustered near z = 1); a crossing narrower than
+    the clustered grid could be missed, which the caller's eigenvalue
+    checks detect."""
+    m, n = A0.shape[0], A0.shape[-1]
+    U, sv, Vt = np.linalg.svd(A1)
+    u = U[:, :, 0] * sv[:, :1]
+    v = Vt[:, 0, :]
+    lam, V = np.linalg.eig(A0)
+    with np.errstate(all="ignore"):
+        direct = ~(np.linalg.cond(V) < 1e10)
+    Vinv = np.linalg.inv(np.where(direct[:, None, None], np.eye(n), V))
+    res = (v[:, None, :] @ V)[:, 0, :] * (Vinv @ u[:, :, None])[:, :, 0]
+
+    def G(li, w):
+        z = np.exp(1j * w)
+        out = np.zeros(w.shape, dtype=complex)
+        with np.errstate(all="ignore"):
+            for k in range(n):
+                out += res[li, k][:, None] / (z - lam[li, k][:, None])
+            bad = direct[li]
+            if bad.any():
+                lb = li[bad]
+                M = z[bad][..., None, None] * np.eye(n) - A0[lb][:, None]
+                x = np.linalg.solve(M, np.broadcast_to(u[lb][:, None, :, None], M.shape[:-1] + (1,)))
+                out[bad] = (v[lb][:, None, None, :] @ x)[..., 0, 0]
+        return out
+
+    near = (np.abs(lam) > 0.5) & (lam.imag > 1e-12)
+    ang = np.where(near, np.abs(np.angle(lam)), np.nan)
+    base = np.unique(np.concatenate([np.geomspace(1e-6, math.pi, _N_LOG), np.linspace(0.0, math.pi, 2 * _N_LIN + 1)[1:]]))
+    offs = np.concatenate([1.0 - _CLUSTER[::-1], 1.0 + _CLUSTER])
+    wc = (ang[:, :, None] * offs[None, None, :]).reshape(m, -1)
+    wc = np.where(np.isfinite(wc) & (wc > 0) & (wc < math.pi), wc, math.pi)
+    w = np.sort(np.concatenate([np.broadcast_to(base, (m, base.size)), wc], axis=1), axis=1)
+    rows = np.arange(m)
+    g = G(rows, w)
+    with np.errstate(all="ignore"):
+        h = g.imag / np.abs(g)
+    fin = np.isfinite(h)
+    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+
+    def fh(li, x):
+        val = G(li, np.asarray(x)[:, None])[:, 0]
+        with np.errstate(all="ignore"):
+            return val.imag / np.abs(val)
+
+    wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+    val = G(ii, wr[:, None])[:, 0]
+    cands: list[list[float]] = [[] for _ in range(m)]
+    with np.errstate(all="ignore"):
+        ok = np.isfinite(val) & (np.abs(val.imag) <= 1e-7 * np.abs(val)) & (np.abs(val) > 0)
+        for i, gv in zip(ii[ok], val[ok]):
+            cands[i].append(1.0 / gv.real)
+        for w0 in (0.0, math.pi):
+            g0 = G(rows, np.full((m, 1), w0))[:, 0]
+            ok0 = np.isfinite(g0) & (np.abs(g0) > 0)
+            for i in np.nonzero(ok0)[0]:
+                cands[i].append(1.0 / g0[i].real)
+    return [np.array(c, dtype=float) for c in cands]
 
 
 def _refined_lines(evaluate, stable, y, span: float) -> list[_LineIntervals]:
@@ -817,17 +905,26 @@ def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = 
     flags = np.stack([ln.flags(y) for ln in lines], axis=1)
     suspect |= ((flags != (radius < 1.0 - tol)) & (np.abs(radius - 1.0) > 1e-7)).any(axis=0)
     if suspect.any():
+        # the slower exact path: eigenvalues at every grid value, candidate
+        # gains from the frequency response, bisection only as a last resort
         k = np.nonzero(suspect)[0]
         for i in k:
             radius[:, i] = _radius(A0[i][None] + y[:, None, None] * A1[i][None])
+        eig_stable = radius[:, k] < 1.0 - tol
+        fresh, _ = _classify(A0[k], A1[k], frequency_crossing_gains(A0[k], A1[k]), lo, hi, tol)
+        wrong = []
+        for col, (i, ln) in enumerate(zip(k, fresh)):
+            bad = (ln.flags(y) != eig_stable[:, col]) & (np.abs(radius[:, i] - 1.0) > 1e-7)
+            if bad.any():
+                wrong.append(i)
+            else:
+                lines[i] = ln
 
         def evaluate(li, yy):
             return _radius(A0[li] + np.asarray(yy)[:, None, None] * A1[li]) < 1.0 - tol
 
-        eig_stable = radius[:, k] < 1.0 - tol
-        wrong = ((flags[:, k] != eig_stable) & (np.abs(radius[:, k] - 1.0) > 1e-7)).any(axis=0)
-        if wrong.any():
-            kw = k[wrong]
+        if wrong:
+            kw = np.array(wrong)
             redo = _refined_lines(lambda li, yy: evaluate(kw[li], yy), radius[:, kw] < 1.0 - tol, y, hi - lo)
             for i, ln in zip(kw, redo):
                 lines[i] = ln

@@ -325,6 +325,19 @@ def test_ill_conditioned_polynomial_falls_back_to_eigenvalues():
     ref = np.abs(np.linalg.eigvals(A)).max(axis=-1).reshape(X.shape)
     np.testing.assert_allclose(m.spectral_radius, ref, rtol=0, atol=1e-9)
     assert np.array_equal(m.stable, ref < 1.0 - m.tolerance)
+    # boundaries still exact (candidates from the frequency response), each
+    # one straddled by eigenvalues just beside it
+    assert set(m.boundary_method) == {"exact"}
+    span = spec.y.stop - spec.y.start
+    xs, ys = [], []
+    for x, bnd in zip(m.x_values, m.boundaries):
+        for b in bnd:
+            xs += [x, x]
+            ys += [b - 1e-5 * span, b + 1e-5 * span]
+    assert xs
+    A = maps.closed_loop_matrices(d, {"fr/fs": np.array(xs), "Hi": np.array(ys)})
+    r = np.abs(np.linalg.eigvals(A)).max(axis=-1).reshape(-1, 2)
+    assert np.all((r[:, 0] < 1.0) != (r[:, 1] < 1.0))
 
 
 # ---------------------------------------------------------------------------
