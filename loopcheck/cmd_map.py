@@ -216,6 +216,8 @@ def summary_text(smap, case_path: str, figure, csv_path) -> str:
             f"  boundaries: exact in {n_exact} of {len(methods)} columns, elsewhere bisection between {yn} grid "
             f"values (a region thinner than one {yn} step can be missed there)"
         )
+        if smap.x.is_gain and not smap.y.is_gain:
+            lines.append(f"  hint: the gain {xn} on the y axis (--x {yn} --y {xn}) gives exact boundaries in every column")
     if figure is not None:
         lines.append(f"  figure: {figure}")
     if csv_path is not None:
