@@ -78,8 +78,8 @@ def map_command(
     from loopcheck.maps import compute_map
 
     design = loaded.design
-    with progress(1.0, f"map {spec.x.name} x {spec.y.name}", quiet=quiet) as advance:
-        smap = compute_map(design, spec, progress=advance)
+    with progress(100, f"map {spec.x.name} x {spec.y.name} [%]", quiet=quiet) as advance:
+        smap = compute_map(design, spec, progress=lambda fraction: advance(100.0 * fraction))
 
     if output is not None:
         from loopcheck.map_plot import map_figure, save_figure
