@@ -145,9 +145,12 @@ def _worst_text(w) -> list[str]:
         return [head, "  " + w.shortfalls[0]]
     with np.errstate(all="ignore"):
         sp_db = 20 * math.log10(float(m.sensitivity_peak))
-    lines = [head,
-             f"  phase margin {float(m.phase_margin_deg):.1f} deg, gain may fall {-float(m.gm_lower_db):.2f} dB "
-             f"and rise {float(m.gm_upper_db):.2f} dB, sensitivity peak {sp_db:.2f} dB"]
+    fall, rise = -float(m.gm_lower_db), float(m.gm_upper_db)
+    fall_t = "without limit" if math.isinf(fall) else f"{fall:.2f} dB"
+    rise_t = "without limit" if math.isinf(rise) else f"{rise:.2f} dB"
+    pm = float(m.phase_margin_deg)
+    pm_t = "no gain crossover" if math.isinf(pm) else f"phase margin {pm:.1f} deg"
+    lines = [head, f"  {pm_t}, gain may fall {fall_t} and rise {rise_t}, sensitivity peak {sp_db:.2f} dB"]
     if w.shortfalls:
         lines += ["  misses: " + s for s in w.shortfalls]
     else:

@@ -59,11 +59,17 @@ def grid_figure(result, *, design_Lg_H: float | None = None, scr_of=None, title:
     fig = Figure(figsize=(8.0, 10.0), constrained_layout=True)
     FigureCanvasAgg(fig)
     axs = fig.subplots(4, 1, sharex=True)
-    x = _x(nom.Lg_H, scr_of)
+    x = np.asarray(_x(nom.Lg_H, scr_of), dtype=float)
     lo, hi = result.Lg_range_H
+    # on an SCR axis Lg = 0 is an infinitely stiff grid: draw it at a finite
+    # left edge (twice the largest finite SCR) and leave it out of the curves
+    finite = x[np.isfinite(x)]
+    x_edge = 2.0 * float(finite.max()) if finite.size else 1e3
+    x = np.where(np.isfinite(x), x, np.nan)
 
     def X(lg):
-        return float(_x(np.array([lg]), scr_of)[0])
+        v = float(_x(np.array([lg]), scr_of)[0])
+        return v if math.isfinite(v) else x_edge
 
     # background: stable intervals shaded, the rest hatched
     for ax in axs:
@@ -164,8 +170,6 @@ def grid_figure(result, *, design_Lg_H: float | None = None, scr_of=None, title:
         axs[-1].set_xscale("log")
         axs[-1].set_xlabel("short-circuit ratio SCR [-] (stiff grid on the left)")
         x0, x1 = X(lo), X(hi)
-        if math.isinf(x0):
-            x0 = float(np.nanmax(x[np.isfinite(x)])) if np.isfinite(x).any() else 1e3
         axs[-1].set_xlim(max(x0, x1), min(x0, x1))
     sub = "margins over the grid-inductance range" + (f", nominal and {len(corners)} tolerance corners" if corners else "")
     fig.suptitle(f"{title}\n{sub}" if title else sub, fontsize=10)

@@ -76,11 +76,15 @@ def pick_figure(result, *, design_Hi_V_per_A: float | None = None, title: str = 
     ax.axhline(1.0, color=c["black"], ls="-.", lw=1, label="on target (index 1)")
     if result.Hi_V_per_A is not None:
         ax.plot([result.Hi_V_per_A], [min(result.grid_index, 3.0)], "o", color=c["blue"], ms=7)
-    ax.set_ylim(min(0.0, np.nanmin(shown) if np.isfinite(shown).any() else 0.0) - 0.05, min(top, 3.0) * 1.1 + 0.05)
+    ax.set_ylim(min(0.0, np.nanmin(shown) if np.isfinite(shown).any() else 0.0) - 0.05,
+                min(max(top, 1.0), 3.0) * 1.1 + 0.05)  # the target line stays in view
     ax.set_ylabel("worst-case index [-]\n(margin / target)")
     handles, labels = ax.get_legend_handles_labels()
-    extra = [Patch(facecolor=c["green"], alpha=0.3, label="meets the targets"),
-             Patch(facecolor="none", edgecolor=c["vermillion"], hatch="//", label="unstable somewhere")]
+    extra = []
+    if result.Hi_interval_V_per_A:
+        extra.append(Patch(facecolor=c["green"], alpha=0.3, label="meets the targets"))
+    if not np.all(s.all_stable):
+        extra.append(Patch(facecolor="none", edgecolor=c["vermillion"], hatch="//", label="unstable somewhere"))
     if result.Hi_V_per_A is not None:
         extra.append(Line2D([], [], color=c["blue"], lw=1.8, label=f"recommended Hi = {result.Hi_V_per_A:.4g} V/A"))
     if design_Hi_V_per_A is not None:
