@@ -9,9 +9,10 @@ for a design and an Lg range [H]:
 
 * the Lg intervals where the closed loop is stable, with exact endpoints
   (:func:`stable_lg_intervals`): an adaptive eigenvalue scan that refines
-  wherever a closed-loop eigenvalue moves far compared with its distance to
-  the unit circle (so no excursion across the circle between two samples is
-  missed), followed by bisection on the spectral radius minus one;
+  wherever the samples cannot rule out an excursion of a closed-loop
+  eigenvalue across the unit circle between them (estimated from the bend
+  of the eigenvalue paths, assumed smooth at the scale of the sampling),
+  followed by bisection on the spectral radius minus one;
 * per Lg: resonance, verdict, phase margin, gain-margin interval and
   sensitivity peak (:func:`evaluate_points`, batched over any number of
   points: component variants x Lg x damping gain x Kp);
