@@ -72,16 +72,13 @@ References
 .. [4] N. J. Higham, "The scaling and squaring method for the matrix
    exponential revisited", SIAM J. Matrix Anal. Appl., vol. 26, no. 4,
    pp. 1179-1193, 2005 (the batched matrix exponential used here).
-.. [5] D. A. Bini, "Numerical computation of polynomial zeros by means of
-   Aberth's method", Numer. Algorithms, vol. 13, pp. 179-200, 1996
-   (Newton steps on polynomial roots, Newton's identities as checks; from
-   memory).
-.. [6] J. Dannehl, M. Liserre and F. W. Fuchs, "Filter-Based Active Damping
-   of Voltage Source Converters With LCL Filter", IEEE Trans. Ind.
-   Electron., vol. 58, no. 8, pp. 3623-3633, 2011, and C. A. Parker,
-   D. G. Holmes and B. P. McGrath, "Regions of Active Damping Control for
-   LCL Filters", IEEE Trans. Ind. Appl., vol. 50, no. 1, pp. 424-432, 2014
-   (the critical frequency fs/6 drawn on fr/fs axes; from memory).
+.. [5] Parker, McGrath and Holmes, "Regions of Active
+   Damping Control for LCL Filters", IEEE Trans. Ind. Appl., vol. 50,
+   no. 1, pp. 424-432, 2014 (the critical ratio fr/fs = 1/6 drawn on maps;
+   from memory).
+
+Newton's method on polynomial roots and Newton's identities between roots
+and coefficients, used by :func:`track_radius`, are common practice.
 """
 
 from __future__ import annotations

@@ -113,7 +113,7 @@ def _jury_interval_for_damping_loop(theta: float):
     cubic (E. I. Jury, "Theory and Application of the z-Transform Method",
     Wiley, 1964; K. Ogata, "Discrete-Time Control Systems", 2nd ed.,
     Prentice Hall, 1995, sec. 4-3; from memory) give the range of k.
-    Region picture: C. A. Parker, D. G. Holmes and B. P. McGrath, "Regions
+    Region picture: Parker, McGrath and Holmes, "Regions
     of Active Damping Control for LCL Filters", IEEE Trans. Ind. Appl.,
     vol. 50, no. 1, pp. 424-432, 2014 (from memory)."""
     k, th = sp.symbols("k theta", real=True)
@@ -197,7 +197,7 @@ def test_damping_loop_has_no_stable_gain_at_the_critical_ratio():
     "feedback, delay, critical, left_stable",
     [
         # grid-current feedback: stable without damping only above fs/6 with one
-        # sample of delay (Parker, Holmes & McGrath 2014; Wang, Blaabjerg & Loh,
+        # sample of delay (Parker, McGrath & Holmes 2014; Wang, Blaabjerg & Loh,
         # IEEE Trans. Power Electron., vol. 31, no. 1, pp. 213-223, 2016; from memory)
         ("grid", 1.0, 1.0 / 6.0, False),
         # half a sample of computation delay moves the ratio to 1/4 (Pan, Ruan, Bao,
