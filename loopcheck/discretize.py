@@ -24,6 +24,10 @@ References
 .. [3] C. F. Van Loan, "Computing integrals involving the matrix
    exponential", IEEE Trans. Autom. Control, vol. 23, no. 3, pp. 395-404,
    1978 (the block matrix exponential used here).
+.. [4] N. J. Higham, "The scaling and squaring method for the matrix
+   exponential revisited", SIAM J. Matrix Anal. Appl., vol. 26, no. 4,
+   pp. 1179-1193, 2005 (the exponential itself, batched in
+   :mod:`loopcheck.expm`).
 """
 
 from __future__ import annotations
@@ -31,7 +35,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import expm
+from .expm import expm_batched
 
 
 def _expm_with_input(A, B, tau):
@@ -44,7 +48,7 @@ def _expm_with_input(A, B, tau):
     M = np.zeros(batch + (n + m, n + m))
     M[..., :n, :n] = A * tau
     M[..., :n, n:] = B * tau
-    E = expm(M)
+    E = expm_batched(M)
     return E[..., :n, :n], E[..., :n, n:]
 
 

@@ -71,7 +71,8 @@ References
    (from memory).
 .. [4] N. J. Higham, "The scaling and squaring method for the matrix
    exponential revisited", SIAM J. Matrix Anal. Appl., vol. 26, no. 4,
-   pp. 1179-1193, 2005 (the batched matrix exponential used here).
+   pp. 1179-1193, 2005 (the batched matrix exponential of
+   :mod:`loopcheck.expm`, used by the discretisation).
 .. [5] Parker, McGrath and Holmes, "Regions of Active
    Damping Control for LCL Filters", IEEE Trans. Ind. Appl., vol. 50,
    no. 1, pp. 424-432, 2014 (the critical ratio fr/fs = 1/6 drawn on maps;
@@ -91,6 +92,7 @@ from typing import Callable
 import numpy as np
 
 from .controller import controller_blocks, parallel
+from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space
@@ -335,102 +337,6 @@ def point_design(design: Design, values: dict) -> Design:
 # batched model: exact ZOH with delay, damping loop, controller
 # ---------------------------------------------------------------------------
 
-_PADE13 = (
-    64764752532480000.0,
-    32382376266240000.0,
-    7771770303897600.0,
-    1187353796428800.0,
-    129060195264000.0,
-    10559470521600.0,
-    670442572800.0,
-    33522128640.0,
-    1323241920.0,
-    40840800.0,
-    960960.0,
-    16380.0,
-    182.0,
-    1.0,
-)
-_THETA13 = 5.371920351148152
-
-
-def expm_batched(M: np.ndarray) -> np.ndarray:
-    """Matrix exponential of a stack of square matrices ``M [..., n, n]``.
-
-    Scaling and squaring with the [13/13] Pade approximant (Higham 2005,
-    see the module references), vectorised over the stack: one set of
-    matrix products for all matrices that need the same number of
-    squarings."""
-    M = np.asarray(M, dtype=float)
-    shape = M.shape
-    n = shape[-1]
-    X = M.reshape((-1, n, n))
-    out = np.empty_like(X)
-    if X.shape[0] == 0:
-        return out.reshape(shape)
-    norm = np.abs(X).sum(axis=-2).max(axis=-1)  # 1-norm
-    with np.errstate(divide="ignore"):
-        s = np.where(norm > _THETA13, np.ceil(np.log2(np.maximum(norm, 1e-300) / _THETA13)), 0.0).astype(int)
-    eye = np.eye(n)
-    b = _PADE13
-    for sv in np.unique(s):
-        idx = np.nonzero(s == sv)[0]
-        A = X[idx] / (2.0**sv)
-        A2 = A @ A
-        A4 = A2 @ A2
-        A6 = A4 @ A2
-        U = A @ (A6 @ (b[13] * A6 + b[11] * A4 + b[9] * A2) + b[7] * A6 + b[5] * A4 + b[3] * A2 + b[1] * eye)
-        V = A6 @ (b[12] * A6 + b[10] * A4 + b[8] * A2) + b[6] * A6 + b[4] * A4 + b[2] * A2 + b[0] * eye
-        R = np.linalg.solve(V - U, V + U)
-        for _ in range(int(sv)):
-            R = R @ R
-        out[idx] = R
-    return out.reshape(shape)
-
-
-def _expm_with_input(A, B, tau):
-    """(e^{A tau}, int_0^tau e^{A s} ds B) by one block exponential (Van Loan)."""
-    n, m = A.shape[-1], B.shape[-1]
-    tau = np.asarray(tau, dtype=float)[..., None, None]
-    batch = np.broadcast_shapes(A.shape[:-2], B.shape[:-2], tau.shape[:-2])
-    M = np.zeros(batch + (n + m, n + m))
-    M[..., :n, :n] = A * tau
-    M[..., :n, n:] = B * tau
-    E = expm_batched(M)
-    return E[..., :n, :n], E[..., :n, n:]
-
-
-def discretize_batched(A, B, C, Ts_s, delay: float):
-    """Exact ZOH model with computation delay, batched: the same model as
-    :func:`loopcheck.discretize.discretize_plant` (see there for the timing
-    and its references), computed with :func:`expm_batched`.
-
-    Returns ``(Ad, Bd, Cd)`` with state ``[x, u_prev]`` when delay > 0."""
-    A = np.asarray(A, dtype=float)
-    B = np.asarray(B, dtype=float)
-    C = np.asarray(C, dtype=float)
-    Ts = np.asarray(Ts_s, dtype=float)
-    n = A.shape[-1]
-    if delay == 0.0:
-        Phi, Gam = _expm_with_input(A, B, Ts)
-        batch = Phi.shape[:-2]
-        return Phi, Gam, np.broadcast_to(C, batch + C.shape[-2:]).copy()
-    E_new, G_new = _expm_with_input(A, B, (1.0 - delay) * Ts)
-    E_old, G_old0 = _expm_with_input(A, B, delay * Ts)
-    Phi = E_new @ E_old
-    G_old = E_new @ G_old0
-    batch = Phi.shape[:-2]
-    Ad = np.zeros(batch + (n + 1, n + 1))
-    Ad[..., :n, :n] = Phi
-    Ad[..., :n, n:] = G_old
-    Bd = np.zeros(batch + (n + 1, 1))
-    Bd[..., :n, :] = np.broadcast_to(G_new, batch + (n, 1))
-    Bd[..., n, 0] = 1.0
-    Cd = np.zeros(batch + (C.shape[-2], n + 1))
-    Cd[..., :, :n] = C
-    return Ad, Bd, Cd
-
-
 @dataclass(frozen=True, eq=False)
 class _Plants:
     """Discrete plants with the damping loop open: Ad [..., n, n], Bd
@@ -452,7 +358,8 @@ def _plants(design: Design, prm: dict) -> _Plants:
         d.kind, d.Rd_ohm, prm["Cd"], d.Ld_H,
     )
     Ts = 1.0 / prm["fs"]
-    Ad, Bd, Cd = discretize_batched(p.A, p.B, p.C, Ts, design.sampling.delay)
+    dp = discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay)
+    Ad, Bd, Cd = dp.A, dp.B, dp.C
     row = OUTPUT_I2 if design.control.feedback == "grid" else OUTPUT_I1
     return _Plants(Ad, Bd, Cd[..., row : row + 1, :], Cd[..., OUTPUT_IC : OUTPUT_IC + 1, :], Ts)
 

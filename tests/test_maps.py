@@ -18,6 +18,7 @@ from scipy.signal import cont2discrete
 from loopcheck import maps
 from loopcheck.analysis import analyse
 from loopcheck.discretize import discretize_plant
+from loopcheck.expm import expm_batched
 from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
 from loopcheck.plant import OUTPUT_IC, lcl_state_space
 
@@ -47,7 +48,7 @@ def test_batched_expm_matches_scipy():
     # norms from 1e-3 to ~60 exercise zero to several squarings
     rng = np.random.default_rng(7)
     M = rng.standard_normal((40, 5, 5)) * np.geomspace(1e-3, 12.0, 40)[:, None, None]
-    E = maps.expm_batched(M)
+    E = expm_batched(M)
     for m, e in zip(M, E):
         ref = expm(m)
         assert np.max(np.abs(e - ref)) <= 1e-12 * max(1.0, np.max(np.abs(ref)))
@@ -58,16 +59,19 @@ def test_batched_zoh_matches_scipy_and_engine():
     # engine's discretize_plant for fractional delays (same model, other code)
     p = lcl_state_space(np.array([1.9e-3, 1.2e-3]), np.array([5e-6, 12e-6]), 0.7e-3, 0.03, 0.01)
     Ts = 1.0 / FS
-    Ad, Bd, _ = maps.discretize_batched(p.A, p.B, p.C, Ts, 0.0)
+    d0 = discretize_plant(p.A, p.B, p.C, Ts, 0.0)
+    Ad, Bd = d0.A, d0.B
     for k in range(2):
         ref = cont2discrete((p.A[k], p.B[k], p.C[k], np.zeros((3, 1))), Ts, method="zoh")
         np.testing.assert_allclose(Ad[k], ref[0], rtol=0, atol=1e-13)
         np.testing.assert_allclose(Bd[k], ref[1], rtol=0, atol=1e-13)
     for delay in (0.25, 0.5, 1.0):
-        Ad, Bd, Cd = maps.discretize_batched(p.A, p.B, p.C, Ts, delay)
-        ref = discretize_plant(p.A, p.B, p.C, Ts, delay)
-        np.testing.assert_allclose(Ad, ref.A, rtol=0, atol=1e-13)
-        np.testing.assert_allclose(Bd, ref.B, rtol=0, atol=1e-13)
+        # batched call against one-at-a-time calls (same model)
+        d = discretize_plant(p.A, p.B, p.C, Ts, delay)
+        for k in range(2):
+            ref = discretize_plant(p.A[k], p.B[k], p.C[k], Ts, delay)
+            np.testing.assert_allclose(d.A[k], ref.A, rtol=0, atol=1e-13)
+            np.testing.assert_allclose(d.B[k], ref.B, rtol=0, atol=1e-13)
 
 
 def test_characteristic_polynomial_is_affine_and_matches_numpy():
