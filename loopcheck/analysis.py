@@ -19,10 +19,13 @@ CONTOUR_OFFSET = 1e-7
 def _special_angles(loop: Loop, design: Design) -> list[float]:
     """Angles [rad/sample] around which the frequency grid is refined: the
     open-loop poles near the circle (resonances, resonators)."""
-    A, _, _ = loop.open_loop()
+    A, B, C = loop.open_loop()
     p = np.linalg.eigvals(A)
     near = p[(np.abs(p) > 0.5) & (np.abs(p.imag) > 1e-12)]
-    ang = [abs(float(np.angle(x))) for x in near]
+    # lightly damped closed-loop poles make sharp sensitivity peaks
+    pc = np.linalg.eigvals(A - B @ C)
+    near_cl = pc[(np.abs(pc) > 0.9) & (np.abs(pc.imag) > 1e-12)]
+    ang = [abs(float(np.angle(x))) for x in np.concatenate([near, near_cl])]
     f1 = design.grid.f_hz
     Ts = design.sampling.Ts_s
     if design.control.kind == "PR":
