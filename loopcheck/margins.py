@@ -135,7 +135,8 @@ def sensitivity_peak(L: LoopFn, w: np.ndarray, Lw: np.ndarray, n_peaks: int = 6)
     bounded scalar search between their neighbours, so a narrow peak beside
     a resonator is not lost to a broader one that happens to be larger on
     the grid."""
-    S = np.abs(1.0 / (1.0 + Lw))
+    with np.errstate(all="ignore"):  # poles exactly on the grid give nan; set to 0 below
+        S = np.abs(1.0 / (1.0 + Lw))
     S[~np.isfinite(S)] = 0.0
     inner = np.nonzero((S[1:-1] >= S[:-2]) & (S[1:-1] >= S[2:]))[0] + 1
     cand = np.concatenate([inner, [0, w.size - 1]])
