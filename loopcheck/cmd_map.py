@@ -201,12 +201,17 @@ def summary_text(smap, case_path: str, figure, csv_path) -> str:
         a, b = smap.design_interval
         edge_lo = "range end" if a <= min(smap.y.start, smap.design_y) else "boundary"
         edge_hi = "range end" if b >= max(smap.y.stop, smap.design_y) else "boundary"
-        lines.append(
-            f"  stable {yn} at this {xn}: {_q(a, yn)} ({edge_lo}) .. {_q(b, yn)} ({edge_hi}); "
-            f"the design is {_q(smap.design_y - a, yn)} above the lower and {_q(b - smap.design_y, yn)} below the upper edge"
-        )
+        # distances only to real stability boundaries, not to the ends of the map
+        room = []
+        if edge_lo == "boundary":
+            room.append(f"{_q(smap.design_y - a, yn)} above the lower boundary")
+        if edge_hi == "boundary":
+            room.append(f"{_q(b - smap.design_y, yn)} below the upper boundary")
+        room_text = "the design is " + " and ".join(room) if room else "no stability boundary in this column of the map"
+        lines.append(f"  stable {yn} at this {xn}: {_q(a, yn)} ({edge_lo}) .. {_q(b, yn)} ({edge_hi}); {room_text}")
     crit = smap.critical_ratio
-    lines.append(f"  critical ratio fr/fs = 1/(4 delay + 2) = {crit:.4g} (delay {smap.delay:g} sampling periods)")
+    period = "sampling period" if smap.delay == 1 else "sampling periods"
+    lines.append(f"  critical ratio fr/fs = 1/(4 delay + 2) = {crit:.4g} (delay {smap.delay:g} {period})")
     methods = smap.boundary_method
     n_exact = sum(m == "exact" for m in methods)
     if n_exact == len(methods):

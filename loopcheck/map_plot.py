@@ -99,7 +99,8 @@ def _add_overlays(ax, smap, fx, fy, legend: list) -> None:
     label = f"design point ({verdict})" + ("" if inside else ", outside this map")
     if inside:
         ax.plot(
-            smap.design_x * fx, smap.design_y * fy, marker="*", ms=17, mfc=ORANGE, mec="black", mew=1.2, ls="none"
+            smap.design_x * fx, smap.design_y * fy, marker="*", ms=17, mfc=ORANGE, mec="black", mew=1.2, ls="none",
+            clip_on=False, zorder=6,  # a design point on the edge of the map (often Hi = 0) stays whole
         )
     legend.append(Line2D([], [], marker="*", ms=13, mfc=ORANGE, mec="black", mew=1.2, ls="none", label=label))
 
