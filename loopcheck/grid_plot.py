@@ -153,8 +153,14 @@ def grid_figure(result, *, design_Lg_H: float | None = None, scr_of=None, title:
             a.axvline(X(design_Lg_H), color=c["black"], lw=1.2, ls="-")
         a.axvline(X(result.worst.Lg_H), color=c["vermillion"], lw=1.2, ls="--")
     handles, labels = axs[0].get_legend_handles_labels()
-    extra = [Patch(facecolor=c["green"], alpha=0.25, label="stable (nominal)"),
-             Patch(facecolor="none", edgecolor=c["vermillion"], hatch="//", label="unstable (nominal)")]
+    # legend entries only for the backgrounds actually drawn
+    intervals = list(nom.scan.stable_intervals_H)
+    covered = sum(b - a for a, b in intervals)
+    extra = []
+    if intervals:
+        extra.append(Patch(facecolor=c["green"], alpha=0.25, label="stable (nominal)"))
+    if covered < (hi - lo) * (1 - 1e-12) or not intervals:
+        extra.append(Patch(facecolor="none", edgecolor=c["vermillion"], hatch="//", label="unstable (nominal)"))
     from matplotlib.lines import Line2D
 
     if design_Lg_H is not None and lo <= design_Lg_H <= hi:
@@ -164,11 +170,23 @@ def grid_figure(result, *, design_Lg_H: float | None = None, scr_of=None, title:
     axs[0].legend(handles + extra, labels + [h.get_label() for h in extra], fontsize=7, loc="best")
     for a in axs[1:]:
         a.legend(fontsize=7, loc="best")
+    if not nom.scan.stable_intervals_H:
+        # nothing to draw in the margin panels: say so instead of empty axes
+        for a in axs[1:]:
+            a.text(0.5, 0.5, "no margins: the nominal loop is unstable over the whole range", transform=a.transAxes,
+                   ha="center", va="center", fontsize=9, bbox=dict(boxstyle="round", fc="white", ec=c["vermillion"]))
+            a.set_yticks([])
     if scr_of is None:
         axs[-1].set_xlabel("grid inductance Lg [mH]")
     else:
+        from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
         axs[-1].set_xscale("log")
         axs[-1].set_xlabel("short-circuit ratio SCR [-] (stiff grid on the left)")
+        # plain numbers (2, 5, 10, 20, ...) rather than powers of ten
+        axs[-1].xaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+        axs[-1].xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+        axs[-1].xaxis.set_minor_formatter(NullFormatter())
         x0, x1 = X(lo), X(hi)
         axs[-1].set_xlim(max(x0, x1), min(x0, x1))
     sub = "margins over the grid-inductance range" + (f", nominal and {len(corners)} tolerance corners" if corners else "")
