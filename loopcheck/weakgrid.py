@@ -661,6 +661,15 @@ def binding_target(m: PointMargins, t: Targets) -> np.ndarray:
     return np.where(np.asarray(m.stable), names, "stability")
 
 
+def _short_of(value: float, target: float, decimals: int) -> str:
+    """``value`` (below ``target``) with enough decimals that it does not
+    print as the target itself (2.996 dB, not 3.00 dB, against 3 dB)."""
+    d = decimals
+    while d < 6 and round(value, d) >= target:
+        d += 1
+    return f"{value:.{d}f}"
+
+
 def shortfalls(m: PointMargins, t: Targets) -> list[str]:
     """Human one-liners of every target a single point misses (empty: all met)."""
     if not bool(m.stable):
@@ -669,13 +678,13 @@ def shortfalls(m: PointMargins, t: Targets) -> list[str]:
     out = []
     pm = float(m.phase_margin_deg)
     if pm < t.phase_margin_deg:
-        out.append(f"phase margin {pm:.1f} deg < {t.phase_margin_deg:g} deg")
+        out.append(f"phase margin {_short_of(pm, t.phase_margin_deg, 1)} deg < {t.phase_margin_deg:g} deg")
     gl = -float(m.gm_lower_db)
     if gl < t.gain_margin_db:
-        out.append(f"gain may fall only {gl:.2f} dB (< {t.gain_margin_db:g} dB) before instability")
+        out.append(f"gain may fall only {_short_of(gl, t.gain_margin_db, 2)} dB (< {t.gain_margin_db:g} dB) before instability")
     gu = float(m.gm_upper_db)
     if gu < t.gain_margin_db:
-        out.append(f"gain may rise only {gu:.2f} dB (< {t.gain_margin_db:g} dB) before instability")
+        out.append(f"gain may rise only {_short_of(gu, t.gain_margin_db, 2)} dB (< {t.gain_margin_db:g} dB) before instability")
     if t.sensitivity_peak_max is not None and float(m.sensitivity_peak) > t.sensitivity_peak_max:
         out.append(f"sensitivity peak {float(m.sensitivity_peak):.3g} > {t.sensitivity_peak_max:.3g}")
     return out
