@@ -59,14 +59,18 @@ def format_pick(case, r, rows: int) -> str:
     if r.Hi_V_per_A is None:
         L.append("recommended     none")
     else:
-        L.append(f"recommended     Hi = {r.Hi_V_per_A:.4g} V/A   (case: {d.control.Hi_V_per_A:.4g} V/A)"
+        head = "recommended    " if r.meets_targets else "most robust    "  # not a recommendation if it misses a target
+        L.append(f"{head} Hi = {r.Hi_V_per_A:.4g} V/A   (case: {d.control.Hi_V_per_A:.4g} V/A)"
                  + (f", Kp = {r.Kp_V_per_A:.4g} V/A (case: {d.control.Kp_V_per_A:.4g} V/A)" if r.Kp_range_V_per_A else ""))
         w = r.worst
         m = w.margins
         L.append(f"                worst-case index {r.index:.3f} (1 = on target), set by the {w.binding} "
                  f"at Lg = {w.Lg_H * 1e3:.4g} mH ({w.variant})")
+        fall, rise = -float(m.gm_lower_db), float(m.gm_upper_db)
+        fall_t = "without limit" if math.isinf(fall) else f"{fall:.2f} dB"
+        rise_t = "without limit" if math.isinf(rise) else f"{rise:.2f} dB"
         L.append(f"                there: phase margin {float(m.phase_margin_deg):.1f} deg, gain may fall "
-                 f"{-float(m.gm_lower_db):.2f} dB and rise {float(m.gm_upper_db):.2f} dB, sensitivity peak "
+                 f"{fall_t} and rise {rise_t}, sensitivity peak "
                  f"{20 * math.log10(float(m.sensitivity_peak)):.2f} dB")
         L.append("                exact Lg scan at this gain: " +
                  (("stable over the whole range" + (" at every corner" if nc else "")) if r.verified_stable
@@ -83,6 +87,8 @@ def format_pick(case, r, rows: int) -> str:
     L.append("Worst case against Hi")
     L.append(f"  {'Hi [V/A]':>9} {'index':>7} {'PM [deg]':>8} {'fall [dB]':>9} {'rise [dB]':>9} {'S [dB]':>7}")
     H = s.Hi_V_per_A
+    # a grid value within rounding noise of zero (3.6e-15 from linspace) is shown as 0
+    H = np.where(np.abs(H) < 1e-9 * max(float(np.ptp(H)), 1e-300), 0.0, H)
     step = max(1, int(math.ceil(H.size / rows)))
     for i in range(0, H.size, step):
         with np.errstate(all="ignore"):

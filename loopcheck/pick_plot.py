@@ -86,7 +86,7 @@ def pick_figure(result, *, design_Hi_V_per_A: float | None = None, title: str = 
     if not np.all(s.all_stable):
         extra.append(Patch(facecolor="none", edgecolor=c["vermillion"], hatch="//", label="unstable somewhere"))
     if result.Hi_V_per_A is not None:
-        extra.append(Line2D([], [], color=c["blue"], lw=1.8, label=f"recommended Hi = {result.Hi_V_per_A:.4g} V/A"))
+        extra.append(Line2D([], [], color=c["blue"], lw=1.8, label=f"{'recommended' if result.meets_targets else 'most robust (misses a target)'} Hi = {result.Hi_V_per_A:.4g} V/A"))
     if design_Hi_V_per_A is not None:
         extra.append(Line2D([], [], color=c["black"], lw=1.2, ls=":", label=f"case Hi = {design_Hi_V_per_A:.4g} V/A"))
     ax.legend(handles + extra, labels + [h.get_label() for h in extra], fontsize=7, loc="best")
