@@ -68,7 +68,7 @@ def analyse(design: Design, tol: float = TOLERANCE) -> Analysis:
         crossovers.append(Crossover(wc * to_hz, ph, pm, "lag" if pm >= 0 else "lead"))
 
     # real-axis crossings, -180 deg crossings and the stable gain intervals
-    crossings = mg.real_axis_crossings(L, w, Lv)
+    crossings = mg.real_axis_crossings(L, w, Lv, open_loop_poles=ol_poles)
     phase_crossings = sorted(
         (PhaseCrossing(wx * to_hz, 20 * math.log10(abs(v)), -1.0 / v) for wx, v in crossings if v < 0),
         key=lambda c: c.frequency_hz,

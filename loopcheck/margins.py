@@ -95,11 +95,22 @@ def gain_crossovers(L: LoopFn, w: np.ndarray, Lw: np.ndarray) -> list[float]:
     return out
 
 
-def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1e-7):
+#: Distance [dimensionless] from z = 1 or z = -1 within which an open-loop
+#: pole makes L there a pole (an integrator, or a lossless plant's
+#: integrator), so that point is no real-axis crossing. Rounding leaves such
+#: poles within ~1e-15 of the point and L there finite but meaningless.
+POLE_AT_POINT_TOL = 1e-7
+
+
+def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1e-7, open_loop_poles=None):
     """All w in (0, pi] where L(e^{jw}) is real (either sign), with L there.
 
     Poles and zeros of L on the circle flip the sign of Im L without L being
-    real there; such brackets are rejected by checking |Im L|/|L| at the root."""
+    real there; such brackets are rejected by checking |Im L|/|L| at the root.
+    The end points z = -1 and z = 1 are included when L is finite there;
+    pass ``open_loop_poles`` (the eigenvalues of the loop's state matrix) so
+    that a pole within :data:`POLE_AT_POINT_TOL` of such a point excludes it
+    (without them, z = 1 is excluded only when |L(1)| >= 1e12)."""
     with np.errstate(all="ignore"):  # poles/zeros exactly on the grid: inf/nan, skipped below
         h = Lw.imag / np.abs(Lw)
     s = np.sign(h)
@@ -108,6 +119,11 @@ def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1
     def f(x):
         v = _finite_value(L, x)
         return float(v.imag / abs(v))
+
+    def pole_at(z0: float) -> bool:
+        if open_loop_poles is None:
+            return False
+        return bool(np.any(np.abs(np.asarray(open_loop_poles) - z0) < POLE_AT_POINT_TOL))
 
     roots = []
     for i in idx:
@@ -119,11 +135,11 @@ def real_axis_crossings(L: LoopFn, w: np.ndarray, Lw: np.ndarray, tol: float = 1
             roots.append((r, float(v.real)))
     # the Nyquist frequency: z = -1, L real for a real system
     v = L(np.array([-1.0 + 0j]))[0]
-    if np.isfinite(v) and abs(v) > 0:
+    if np.isfinite(v) and abs(v) > 0 and not pole_at(-1.0):
         roots.append((math.pi, float(v.real)))
     # w = 0 (z = 1) when L is finite there (no integrator in the loop)
     v0 = L(np.array([1.0 + 0j]))[0]
-    if np.isfinite(v0) and abs(v0) < 1e12 and abs(v0) > 0:
+    if np.isfinite(v0) and abs(v0) < 1e12 and abs(v0) > 0 and not pole_at(1.0):
         roots.append((0.0, float(v0.real)))
     return roots
 

@@ -19,7 +19,7 @@ from loopcheck import margins as mg
 from loopcheck.analysis import analyse
 from loopcheck.controller import DiscreteSS, parallel, proportional_block
 from loopcheck.loop import Loop, build_loop, close_damping_loop
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
 from loopcheck.plant import OUTPUT_IC
 
 from reference_loop import reference_loop, spectral_radius
@@ -395,3 +395,25 @@ def test_resonator_pole_at_a_bracket_midpoint_does_not_crash():
     assert a.nyquist_consistent
     assert a.stable == (spectral_radius(CL) < 1 - 1e-9)
     assert a.stable == any(lo <= 1 and (hi is None or hi >= 1) for lo, hi in a.stable_gain_intervals)
+
+
+def test_integrator_at_z_equal_one_is_no_real_axis_crossing():
+    # Found by a wider random search: a lossless filter (plant integrator at
+    # z = 1) with large inductors gave |L(1)| ~ 1.5e11 by rounding, below the
+    # old absolute 1e12 cut-off, so z = 1 was taken for a -180 deg crossing:
+    # a spurious "0 Hz, +224 dB" phase crossing and a lower gain factor of
+    # 6.6e-12 instead of 0. With a P controller the integrator pole moves
+    # inside for every small k (elementary root locus), so the loop is stable
+    # down to k -> 0.
+    L1, C = 0.007498942093324558, 2.955203238012614e-07
+    d = Design(
+        Filter(L1, C, L1, damping=PassiveDamping("series-R", 1.0)), Grid(50.0), Sampling(19125.0, 0.5),
+        Control("grid", "P", Kp_V_per_A=0.2868345350696644),
+    )
+    a = analyse(d)
+    assert a.stable
+    assert a.gain_margin.lower_factor == 0.0
+    assert all(c.frequency_hz > 0.0 for c in a.phase_crossings)
+    loop = build_loop(d)
+    for k in (1e-9, 1e-6, 1e-3):
+        assert np.max(np.abs(np.linalg.eigvals(loop.closed_loop_matrix(k)))) < 1.0
