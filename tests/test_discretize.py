@@ -176,6 +176,7 @@ def test_batched_equals_unbatched():
 
 
 def test_delay_outside_range_is_rejected():
+    # Engine contract (issue 2: the delay is any value 0..1 of a sample).
     p = lossy("none")
     with pytest.raises(ValueError):
         discretize_plant(p.A, p.B, p.C, TS, 1.5)

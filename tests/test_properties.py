@@ -74,15 +74,15 @@ def test_analyse_agrees_with_independent_state_space_and_nyquist(d):
     # contour |z| = 1 + CONTOUR_OFFSET that analyse integrates on
     assume(a.verdict != "marginal")
     ol = np.abs(np.linalg.eigvals(L.A))
-    assume(np.all(np.abs(ol - (1 + CONTOUR_OFFSET)) > 1e-9))
     cl = np.abs(np.linalg.eigvals(CL.A))
-    assume(np.all(np.abs(cl - (1 + CONTOUR_OFFSET)) > 1e-9))
+    # poles between the verdict tolerance and the contour are seen
+    # differently by the two counts by construction: leave them out
+    assume(not np.any((cl > 1 - a.tolerance) & (cl < 1 + CONTOUR_OFFSET + 1e-9)))
+    assume(np.all(np.abs(ol - (1 + CONTOUR_OFFSET)) > 1e-9))
     P = int(np.sum(ol > 1 + CONTOUR_OFFSET))
     Z_nyquist = P - a.nyquist_encirclements
-    no_poles_on_circle = bool(np.all(cl < 1 - a.tolerance) | np.any(cl > 1 + CONTOUR_OFFSET))
-    assert no_poles_on_circle or not a.stable
-    assert a.stable == (Z_nyquist == 0 and bool(np.all(cl < 1 - a.tolerance)))
     assert a.stable == (Z_nyquist == 0)
+    assert a.stable == bool(np.all(cl < 1 - a.tolerance))
     # the stable gain intervals contain k = 1 exactly when stable
     contains_one = any(lo <= 1.0 and (hi is None or hi >= 1.0) for lo, hi in a.stable_gain_intervals)
     assert contains_one == a.stable
