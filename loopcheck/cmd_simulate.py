@@ -169,6 +169,8 @@ def simulate(
     sidebands = sideband_check(design, pwm, w, sc) if switched else None
 
     notes = list(w.notes)
+    if Hi_cmp is not None and Hi_cmp == design.control.Hi_V_per_A:
+        notes.append(f"--compare Hi = {Hi_cmp:g} V/A is the design's own damping gain: the comparison repeats the design")
     if pwm is not None and not switched:
         import numpy as np
 

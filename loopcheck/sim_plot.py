@@ -64,17 +64,18 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
         if run.tripped_at_s is not None:
             for ax in axs:
                 ax.axvline(run.tripped_at_s * 1e3, color=col, lw=1.0, ls=":")
+            # a short vertical label beside the line (a horizontal one collides with the
+            # event numbers when the trip follows an event closely); the details go in the box
             axs[0].annotate(
-                f"trip level {run.trip_current_A:.3g} A reached:\nrun stopped ({name})",
-                xy=(run.tripped_at_s * 1e3, 1.0), xycoords=("data", "axes fraction"), xytext=(-4, -4),
-                textcoords="offset points", ha="right", va="top", fontsize=7.5, color=col,
-                bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.85),
+                f"trip ({name})", xy=(run.tripped_at_s * 1e3, 0.97), xycoords=("data", "axes fraction"),
+                xytext=(-2, 0), textcoords="offset points", ha="right", va="top", rotation=90, fontsize=7,
+                color=col, bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.85),
             )
     axs[0].step(w.sample_time_s * 1e3, w.iref_A, where="post", color=c["black"], lw=0.8, ls=(0, (1, 1.5)),
                 label="current reference i_ref[k]")
     ax_v = axs[2].twinx()
     ax_v.plot(w.time_s * 1e3, w.vg_V, color=c["green"], lw=0.9, alpha=0.8, label="grid voltage vg (right axis, panel 3)")
-    ax_v.set_ylabel("vg [V]", color=c["green"])
+    ax_v.set_ylabel("vg [V] (same scale as vc)", color=c["green"])
     ax_v.tick_params(axis="y", colors=c["green"])
 
     # keep the design's waveforms readable when the comparison run grows to the trip level
@@ -126,6 +127,10 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
             f"{name}: resonance oscillation {sim} (simulated); "
             f"pole {rc.predicted_rate_per_s:+.4g} 1/s at {rc.predicted_frequency_hz:,.0f} Hz"
         )
+    for run, _, _, name in runs:
+        if run.tripped_at_s is not None:
+            lines.append(f"{name}: a current reached the trip level {run.trip_current_A:.3g} A at "
+                         f"{run.tripped_at_s * 1e3:.4g} ms; the run stops there")
     if w.events:
         lines.append("events: " + "; ".join(f"({i}) {txt}" for i, (_, txt) in enumerate(w.events, 1)))
     axs[0].text(
@@ -142,6 +147,8 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
         axs[3].set_xlim(window_s[0] * 1e3, window_s[1] * 1e3)
     for ax in axs:
         ax.grid(True, color="#d8d8d8", lw=0.6)
+    # vg on the same scale as vc, so the two voltages compare at a glance
+    ax_v.set_ylim(axs[2].get_ylim())
     handles, labels = [], []
     for ax in list(axs) + [ax_v]:
         h, lab = ax.get_legend_handles_labels()
