@@ -60,6 +60,16 @@ def harmonics(
     except OvermodulationError as exc:
         fail(f"{loaded.where('pwm')} dc_link: {exc}")
     losses = compare_damping(design, op, pwm)
+    # the sideband estimate presumes a stable current loop; say so when it is not
+    from loopcheck.analysis import analyse
+
+    loop = analyse(design)
+    loop_note = None
+    if not loop.stable:
+        loop_note = (
+            f"the current loop of this design is {loop.verdict.upper()} (spectral radius {loop.spectral_radius:.6f}, "
+            "closed-loop eigenvalues): the sideband estimate assumes a stable loop and means nothing until that is fixed"
+        )
 
     files = []
     if output is not None:
@@ -81,8 +91,9 @@ def harmonics(
             "harmonics": check,
             "damping_losses": losses,
             "files": files,
+            "loop_verdict": loop.verdict,
             "caution": CAUTION,
-            "warnings": list(loaded.warnings) + list(pwm_warn),
+            "warnings": list(loaded.warnings) + list(pwm_warn) + ([loop_note] if loop_note else []),
         }))
         return
 
@@ -94,6 +105,7 @@ def harmonics(
         f"  operating point: {op.current_rms_A:.4g} A rms at {op.current_phase_deg:+.3g} deg to the grid voltage "
         f"({op.grid_peak_V:.4g} V peak); rated current {op.rated_current_rms_A:.4g} A rms",
         f"  grid inductance Lg = {check.Lg_H * 1e3:.4g} mH",
+        *([f"  WARNING: {loop_note}"] if loop_note else []),
         "",
         f"  {'sideband':<12}{'frequency':>12}{'order h':>10}{'converter':>12}{'|i2/vi|':>11}{'grid current':>14}"
         f"{'limit':>9}{'margin':>10}",
@@ -124,11 +136,11 @@ def harmonics(
             f"{r.margin_db:+.1f} dB at Lg = {r.Lg_H * 1e3:.4g} mH ({r.frequency_hz:,.0f} Hz, {r.percent:.4g} %)"
         )
     lines += ["", "  damping resistor loss (per phase and total):",
-              f"    {'variant':<62}{'zeta':>6}{'fund.':>9}{'ripple':>9}{'total':>10}"]
+              f"    {'variant':<62}{'zeta':>6}{'fund. [W]':>11}{'ripple [W]':>12}{'total [W]':>11}"]
     for v in losses.variants:
         rip = "n/a" if v.ripple_W is None else f"{v.ripple_W:.3g}"
         lines.append(
-            f"    {v.label[:62]:<62}{v.damping_ratio:>6.3f}{v.fundamental_W:>8.3g}W{rip:>8}W{v.total_W:>9.4g}W"
+            f"    {v.label[:62]:<62}{v.damping_ratio:>6.3f}{v.fundamental_W:>11.3g}{rip:>12}{v.total_W:>11.4g}"
         )
     lines.append("    (zeta: damping ratio of the filter resonance without control; fund./ripple: per phase)")
     for n in losses.notes:

@@ -191,6 +191,24 @@ def test_harmonics_command(tmp_path):
     assert "interconnection rules govern" in text.stdout
 
 
+def test_harmonics_warns_when_the_loop_is_unstable(tmp_path):
+    # Hi = 0 leaves this filter (resonance below fs/6, grid-current feedback)
+    # unstable; the sidebands presume a stable loop, so the command must say so
+    extra = '[pwm]\ndc_link = "700 V"\nupdate = "double"'
+    stable = write(tmp_path, extra=extra)
+    unstable_text = CASE.format(extra=extra).replace('Hi = "10 V/A"', 'Hi = "0 V/A"')
+    unstable = tmp_path / "undamped.toml"
+    unstable.write_text(unstable_text)
+    assert not analyse(read_case(unstable).design).stable  # eigenvalue verdict of the engine
+    r = invoke("harmonics", unstable)
+    assert r.exit_code == 0 and "WARNING: the current loop of this design is UNSTABLE" in r.stdout
+    rec = json.loads(invoke("harmonics", unstable, "--json").stdout)
+    assert rec["loop_verdict"] == "unstable" and any("UNSTABLE" in w for w in rec["warnings"])
+    rec = json.loads(invoke("harmonics", stable, "--json").stdout)
+    assert rec["loop_verdict"] == "stable" and not any("UNSTABLE" in w for w in rec["warnings"])
+    assert "WARNING" not in invoke("harmonics", stable).stdout
+
+
 def test_harmonics_errors(tmp_path):
     r = invoke("harmonics", write(tmp_path, extra=""))
     assert r.exit_code == 2 and "[pwm]: missing table" in r.stderr
