@@ -62,6 +62,11 @@ def harmonics_figure(check, title: str | None = None, name: str = ""):
     ax.plot(w.frequency_hz / 1e3, w.percent, "D", ms=9, mfc="none", mec=c["black"], mew=1.6,
             label=f"worst: {w.frequency_hz / 1e3:.4g} kHz, {w.percent:.3g} % (margin {w.margin_db:+.1f} dB)")
     ax.set_yscale("log")
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+    ax.yaxis.set_major_locator(LogLocator(base=10.0))
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))  # 0.001 %, not 10^-3
+    ax.yaxis.set_minor_formatter(NullFormatter())
     ax.set_ylim(floor, max(float(np.max(pct)), float(np.max(lim))) * 4.0)
     ax.set_xlabel("frequency [kHz]")
     ax.set_ylabel("grid current [% of rated current]")
@@ -84,13 +89,18 @@ def harmonics_figure(check, title: str | None = None, name: str = ""):
         ax2.plot(Lg[i], wp[i], "*", ms=13, color=c["orange"], mec=c["black"], label="design point (nominal Lg)")
         wr = check.worst_over_range
         ax2.annotate(f"smallest margin {wr.margin_db:+.1f} dB\nat Lg = {wr.Lg_H * 1e3:.3g} mH",
-                     xy=(wr.Lg_H * 1e3, wr.percent), xytext=(14, -28), textcoords="offset points", fontsize=8,
-                     arrowprops=dict(arrowstyle="->", color="#555555"))
+                     xy=(wr.Lg_H * 1e3, wr.percent), xytext=(0.30, 0.74), textcoords="axes fraction", fontsize=8,
+                     va="bottom", bbox=dict(boxstyle="round,pad=0.25", fc="white", ec="#999999", alpha=0.9),
+                     arrowprops=dict(arrowstyle="->", color="#555555"))  # text clear of the curve and the star
         ax2.set_yscale("log")
+        # ticks at 1, 2, 5 x 10^k in plain numbers (0.02, not 2x10^-2)
+        ax2.yaxis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+        ax2.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+        ax2.yaxis.set_minor_formatter(NullFormatter())
         ax2.set_xlabel("grid inductance Lg [mH]")
         ax2.set_ylabel("worst sideband [% of rated current]")
         ax2.grid(True, which="major", color="#d0d0d0", lw=0.6)
-        ax2.legend(fontsize=7.5, loc="best")
+        ax2.legend(fontsize=7.5, loc="center right")
     if title is None:
         title = f"Switching sidebands of the grid current vs limits{': ' + name if name else ''}"
     fig.suptitle(title, fontsize=11)
