@@ -217,8 +217,13 @@ def _damping_words(design) -> str:
     if d.kind != "none":
         parts.append(f"passive {d.kind} damping of the capacitor branch (Rd = {q(d.Rd_ohm, 'Ohm')})")
     if not parts:
-        return "no damping of the filter resonance (neither active nor passive)"
+        return "no damping at all (neither active nor passive)"
     return " and ".join(parts)
+
+
+def _periods(n: float) -> str:
+    """'1 sampling period', '0.5 sampling periods'."""
+    return f"{n:g} sampling period" + ("" if n == 1 else "s")
 
 
 def build_job(ctx: ReportContext) -> Section:
@@ -233,8 +238,8 @@ def build_job(ctx: ReportContext) -> Section:
     paras.append(
         "<p>The design under review is the digitally sampled current loop of a grid-connected inverter "
         f"with an LCL filter. The controller regulates the {e(which)} with {e(_controller_words(d.control))}, "
-        f"updated at fs = {_hz(d.sampling.fs_hz)} with a computation delay of {d.sampling.delay:g} "
-        f"sampling period(s) and the modulator's zero-order hold, and the filter resonance "
+        f"updated at fs = {_hz(d.sampling.fs_hz)} with a computation delay of {_periods(d.sampling.delay)} "
+        f"and the modulator's zero-order hold, and the filter resonance "
         f"({_hz(a.resonance_hz)} with the grid inductance) is met by {e(_damping_words(d))}.</p>"
     )
     paras.append(
@@ -286,7 +291,7 @@ def _input_rows(design) -> list[list[str]]:
         rows.append(row("line-to-line rms voltage", "V", g.V_V, "V"))
     rows += [
         row("sampling (= control update) frequency", "fs", s.fs_hz, "Hz"),
-        row("computation delay", "delay", f"{s.delay:g} sampling periods ({q(s.delay * s.Ts_s, 's')})", ""),
+        row("computation delay", "delay", f"{_periods(s.delay)} ({q(s.delay * s.Ts_s, 's')})", ""),
         row("regulated current", "feedback", "grid-side i2" if c.feedback == "grid" else "converter-side i1", ""),
         row("controller", "kind", c.kind, ""),
         row("proportional gain", "Kp", c.Kp_V_per_A, "V/A", prefix=False),
@@ -834,7 +839,7 @@ def assumption_items(design) -> list[str]:
     items = [
         "Per-phase (single-phase equivalent) linear model; the three phases are balanced and decoupled.",
         "Averaged modulator: the converter voltage equals its reference, held constant by a zero-order hold "
-        f"from {s.delay:g} sampling period(s) after the sample to one period later (exact sampled-data model "
+        f"from {_periods(s.delay)} after the sample to one period later (exact sampled-data model "
         "with split sampling interval); switching ripple is not part of the loop model.",
         "The controller's output is the converter voltage: the modulator gain and the dc-link voltage are "
         "folded into the gains (gains in V/A); the dc-link voltage is constant and the modulator never saturates.",
