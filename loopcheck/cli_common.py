@@ -123,6 +123,44 @@ def json_line(obj) -> str:
 # --- atomic output -----------------------------------------------------------
 
 
+def output_problem(path: str | os.PathLike, directory: bool = False) -> str | None:
+    """Why ``path`` cannot be written as an output file (``directory``: as an
+    output directory), or None when it can. Checks only; creates nothing.
+    Commands call it before the long work, so a bad output path costs no
+    computation and leaves nothing behind."""
+    p = os.path.abspath(os.fspath(path))
+    if not directory and os.path.isdir(p):
+        return "is a directory; give a file name"
+    if directory and os.path.exists(p) and not os.path.isdir(p):
+        return "exists and is not a directory"
+    parent = p if directory else os.path.dirname(p)
+    while not os.path.exists(parent):  # the first existing ancestor decides
+        up = os.path.dirname(parent)
+        if up == parent:
+            break
+        parent = up
+    if not os.path.isdir(parent):
+        return f"cannot create it: {parent} is a file, not a directory"
+    if not os.access(parent, os.W_OK | os.X_OK):
+        return f"cannot create it: no permission to write in {parent}"
+    return None
+
+
+def check_output(path: str | os.PathLike | None, option: str, directory: bool = False) -> None:
+    """Fail (one line, exit 2) when ``path`` given with ``option`` cannot be written."""
+    if path is None:
+        return
+    problem = output_problem(path, directory)
+    if problem:
+        fail(f"{option} {os.fspath(path)}: {problem}")
+
+
+def write_failure(option: str, path: str | os.PathLike, exc: OSError) -> NoReturn:
+    """Fail (one line, exit 2) for an OSError raised while writing ``path``."""
+    fail(f"{option} {os.fspath(path)}: cannot write it ({exc.strerror or exc})")
+
+
+
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike) -> Iterator[str]:
     """Yield a temporary path beside ``path`` to write to; on success it is
@@ -137,6 +175,9 @@ def atomic_path(path: str | os.PathLike) -> Iterator[str]:
             fig.savefig(tmp)
     """
     target = os.fspath(path)
+    problem = output_problem(target)
+    if problem:  # a clear reason instead of mkstemp's "File exists" or "Is a directory"
+        raise OSError(problem)
     directory = os.path.dirname(os.path.abspath(target))
     os.makedirs(directory, exist_ok=True)
     base = os.path.basename(target)

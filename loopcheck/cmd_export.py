@@ -11,12 +11,14 @@ import typer
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
     atomic_write_text,
+    check_output,
     fail,
     json_line,
     load_case,
     print_warnings,
     to_jsonable,
     warn,
+    write_failure,
 )
 
 
@@ -51,6 +53,9 @@ def export(
     """
     if out_dir is not None and (header is not None or json_out is not None):
         fail("give either -o/--out-dir or --header/--json-out, not both")
+    check_output(out_dir, "-o", directory=True)
+    check_output(header, "--header")
+    check_output(json_out, "--json-out")
     loaded = load_case(case)
     print_warnings(loaded)
 
@@ -78,21 +83,27 @@ def export(
         stem = Path(loaded.path).stem
         header = out_dir / f"{stem}_controller.h"
         json_out = out_dir / f"{stem}_controller.json"
+        check_output(header, "-o")  # e.g. a directory of that name inside out_dir
+        check_output(json_out, "-o")
     files = {}
     if header is not None:
         files["C header"] = os.fspath(header)
     if json_out is not None:
         files["JSON"] = os.fspath(json_out)
     doc = export_json(ex, loaded.path, files)
-    try:
-        if header is not None:
+    option = "-o" if out_dir is not None else None
+    if header is not None:
+        try:
             atomic_write_text(header, render_header(ex, loaded.path))
-        if json_out is not None:
-            import json
+        except OSError as exc:
+            write_failure(option or "--header", header, exc)
+    if json_out is not None:
+        import json
 
+        try:
             atomic_write_text(json_out, json.dumps(to_jsonable(doc), indent=2, allow_nan=False, ensure_ascii=False) + "\n")
-    except OSError as exc:
-        fail(f"cannot write the output: {exc.strerror or exc} ({exc.filename or ''})")
+        except OSError as exc:
+            write_failure(option or "--json-out", json_out, exc)
     if json_output:
         typer.echo(json_line(doc))
     else:

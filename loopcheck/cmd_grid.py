@@ -9,7 +9,17 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import EXIT_UNSTABLE, atomic_path, fail, json_line, load_case, print_warnings, progress
+from loopcheck.cli_common import (
+    EXIT_UNSTABLE,
+    atomic_path,
+    check_output,
+    fail,
+    json_line,
+    load_case,
+    print_warnings,
+    progress,
+    write_failure,
+)
 
 #: One-line caution printed with every result (README "Safety" has the full text).
 CAUTION = ("Model result only: verify on hardware at reduced voltage with protection; local codes, the utility's "
@@ -282,6 +292,7 @@ def grid(
     loaded = load_case(case)
     if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
         fail(f"-o {output}: the figure must end in .png, .svg or .pdf")
+    check_output(output, "-o")
     lo, hi = lg_range_or_fail(loaded, lg_range)
     spec, targets = read_spec_and_targets(loaded, nominal_only, phase_margin, gain_margin, sensitivity_peak)
     scr_of = _scr_function(loaded.design)
@@ -309,8 +320,11 @@ def grid(
 
         fig = grid_figure(res, design_Lg_H=loaded.design.grid.Lg_H, scr_of=scr_of if vs_scr else None,
                           title=loaded.design.name)
-        with atomic_path(output) as tmp:
-            fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
+        try:
+            with atomic_path(output) as tmp:
+                fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
+        except OSError as exc:
+            write_failure("-o", output, exc)
 
     unstable_somewhere = not res.nominal.scan.fully_stable or any(not f.scan.fully_stable for f in res.corners)
     if json_output:

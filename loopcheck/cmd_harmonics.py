@@ -8,7 +8,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import atomic_path, fail, json_line, load_case, print_warnings, warn
+from loopcheck.cli_common import atomic_path, check_output, fail, json_line, load_case, print_warnings, warn
 
 CAUTION = (
     "Design aid, not a compliance test: the limits apply at the point of common coupling and are "
@@ -38,6 +38,7 @@ def harmonics(
     loaded = load_case(case)
     if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
         fail(f"{output}: the figure must end in .png, .svg or .pdf")
+    check_output(output, "-o")
     from loopcheck.casefile import CaseError
     from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
 

@@ -7,7 +7,17 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import atomic_path, atomic_write_text, fail, json_line, load_case, print_warnings, progress
+from loopcheck.cli_common import (
+    atomic_path,
+    atomic_write_text,
+    check_output,
+    fail,
+    json_line,
+    load_case,
+    print_warnings,
+    progress,
+    write_failure,
+)
 
 FIGURE_SUFFIXES = (".png", ".svg", ".pdf")
 _AXES_HELP = "fr/fs, fs, Lg, Kp, Hi, C, L2, L1, Kr or Ki"
@@ -57,6 +67,8 @@ def map_command(
     """
     if output is not None and output.suffix.lower() not in FIGURE_SUFFIXES:
         fail(f"-o {output}: the figure format follows the suffix; use .png, .svg or .pdf")
+    check_output(output, "-o")
+    check_output(csv_path, "--csv")
     loaded = load_case(case)
     print_warnings(loaded)
 
@@ -86,10 +98,16 @@ def map_command(
 
         kr_unit = "V/A" if design.control.wc_rad_s > 0 else "V/A/s"
         fig = map_figure(smap, kr_unit=kr_unit)
-        with atomic_path(output) as tmp:
-            save_figure(fig, tmp)
+        try:
+            with atomic_path(output) as tmp:
+                save_figure(fig, tmp)
+        except OSError as exc:
+            write_failure("-o", output, exc)
     if csv_path is not None:
-        atomic_write_text(csv_path, csv_text(smap))
+        try:
+            atomic_write_text(csv_path, csv_text(smap))
+        except OSError as exc:
+            write_failure("--csv", csv_path, exc)
     if json_output:
         typer.echo(json_line(json_record(smap, loaded.path, output, csv_path)))
     else:

@@ -7,7 +7,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import atomic_write_text, fail, json_line, load_case, print_warnings, progress
+from loopcheck.cli_common import atomic_write_text, check_output, fail, json_line, load_case, print_warnings, progress
 
 
 def report(
@@ -42,6 +42,7 @@ def report(
     out = output if output is not None else Path(f"{case.stem}-report.html")
     if out.exists() and out.is_dir():
         fail(f"{out}: is a directory; give a file name such as {out / (case.stem + '-report.html')}")
+    check_output(out, "-o")
 
     from loopcheck.casefile import CaseError
     from loopcheck.report import SECTION_IDS, build_report, read_report_options
