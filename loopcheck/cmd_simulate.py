@@ -8,7 +8,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import atomic_path, fail, json_line, load_case, print_warnings, warn
+from loopcheck.cli_common import atomic_path, check_output, fail, json_line, load_case, print_warnings, warn
 
 
 def _parse_compare(text: str) -> float:
@@ -125,6 +125,9 @@ def simulate(
             if not 0 < d_s <= 10.0:
                 raise CaseError(f'--duration: must lie between 0 and 10 s, got "{duration}"')
             sc = replace(sc, duration_s=d_s)
+            if not loaded.tables.get("scenario") and not event and sc.events and sc.events[0].time_s >= d_s:
+                # the default burst (the user asked for no event): keep it inside a shorter run
+                sc = replace(sc, events=(replace(sc.events[0], time_s=d_s / 3.0),))
         for ev in sc.events:
             if ev.time_s >= sc.duration_s:
                 raise CaseError(
@@ -136,6 +139,10 @@ def simulate(
     Hi_cmp = _parse_compare(compare) if compare is not None else None
     if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
         fail(f"{output}: the figure must end in .png, .svg or .pdf")
+    check_output(output, "-o")
+    check_output(csv, "--csv")
+    if csv is not None and Hi_cmp is not None:
+        check_output(csv.with_name(csv.stem + ".compare" + (csv.suffix or ".csv")), "--csv")
     print_warnings(loaded)
 
     from loopcheck.pwm_tables import read_pwm

@@ -171,6 +171,18 @@ def test_simulate_without_scenario_uses_default_burst(tmp_path):
     assert rec["events"][0]["event"].startswith("burst")
 
 
+def test_short_duration_keeps_the_default_burst_inside_the_run(tmp_path):
+    # no [scenario] and no --event: the default burst (20 ms) moves to a third
+    # of a shorter run instead of failing with "not before the end of the run"
+    case = write(tmp_path, extra="")
+    rec = json.loads(invoke("simulate", case, "--duration", "9 ms", "--json").stdout)
+    assert rec["duration_s"] == pytest.approx(9e-3)
+    assert rec["events"][0]["time_s"] == pytest.approx(3e-3) and rec["events"][0]["event"].startswith("burst")
+    # an explicit event keeps its time and is still checked
+    r = invoke("simulate", case, "--duration", "9 ms", "--event", "voltage-pulse at=20ms")
+    assert r.exit_code == 2 and "not before the end of the run" in r.stderr
+
+
 def test_harmonics_command(tmp_path):
     case = write(tmp_path)
     fig = tmp_path / "h.svg"
