@@ -42,6 +42,8 @@ def report(
     out = output if output is not None else Path(f"{case.stem}-report.html")
     if out.exists() and out.is_dir():
         fail(f"{out}: is a directory; give a file name such as {out / (case.stem + '-report.html')}")
+    if out.suffix.lower() not in (".html", ".htm") and not out.is_dir():
+        fail(f"-o {out}: the report is an HTML file; use a name ending in .html (print it to PDF from a browser)")
     check_output(out, "-o")
 
     from loopcheck.casefile import CaseError

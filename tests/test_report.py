@@ -481,6 +481,14 @@ def test_cli_report_output_is_a_directory(tmp_path):
     assert res.exit_code == 2 and "is a directory" in res.stderr
 
 
+def test_cli_report_needs_an_html_name(tmp_path):
+    # an HTML document written under a .pdf name would mislead; say how to get a PDF instead
+    case = _write_case(tmp_path)
+    res = CliRunner().invoke(app, ["report", str(case), "-o", str(tmp_path / "r.pdf")], env=ENV)
+    assert res.exit_code == 2 and "use a name ending in .html" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1 and not (tmp_path / "r.pdf").exists()
+
+
 def test_cli_report_failure_leaves_no_file(tmp_path, monkeypatch):
     import loopcheck.report as rp
 
