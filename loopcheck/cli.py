@@ -52,12 +52,19 @@ def _main(
 
 
 # --- command registration: one import and one line per command -------------
+# (in the order of the design work, which is the order `loopcheck --help` lists)
 from loopcheck import cmd_check  # noqa: E402
 
 app.command("check")(cmd_check.check)
-from loopcheck import cmd_report  # noqa: E402
+from loopcheck import cmd_map  # noqa: E402
 
-app.command("report")(cmd_report.report)
+app.command("map")(cmd_map.map_command)
+from loopcheck import cmd_grid  # noqa: E402
+
+app.command("grid")(cmd_grid.grid)
+from loopcheck import cmd_pick  # noqa: E402
+
+app.command("pick")(cmd_pick.pick)
 from loopcheck import cmd_export  # noqa: E402
 
 app.command("export")(cmd_export.export)
@@ -67,12 +74,6 @@ app.command("simulate")(cmd_simulate.simulate)
 from loopcheck import cmd_harmonics  # noqa: E402
 
 app.command("harmonics")(cmd_harmonics.harmonics)
-from loopcheck import cmd_grid  # noqa: E402
+from loopcheck import cmd_report  # noqa: E402
 
-app.command("grid")(cmd_grid.grid)
-from loopcheck import cmd_pick  # noqa: E402
-
-app.command("pick")(cmd_pick.pick)
-from loopcheck import cmd_map  # noqa: E402
-
-app.command("map")(cmd_map.map_command)
+app.command("report")(cmd_report.report)
