@@ -4,8 +4,8 @@ gives the verdict its comment block promises (``# expect: <verdict>``).
 The expected verdicts rest on the critical-frequency rule of the trade:
 with one sample of computation delay, grid-current feedback without damping
 is stable only for a resonance above fs/6, converter-current feedback only
-below it, and capacitor-current feedback damps below fs/6 (D. M. Parker,
-D. G. Holmes and B. P. McGrath, "Regions of Active Damping Control for LCL
+below it, and capacitor-current feedback damps below fs/6 (S. G. Parker,
+B. P. McGrath and D. G. Holmes, "Regions of Active Damping Control for LCL
 Filters", IEEE Trans. Ind. Appl., vol. 50, no. 1, 2014 -- from memory), and
 on the passive rule Rd near 1/(3*wr*C) for a series damping resistor
 (Liserre, Dell'Aquila and Blaabjerg, IEEE Trans. Power Electron., vol. 19,

@@ -93,8 +93,9 @@ def test_no_gain_at_the_critical_frequency():
     current gain can damp the resonance (critical point of S. G. Parker,
     B. P. McGrath and D. G. Holmes, "Regions of Active Damping Control for
     LCL Filters", IEEE Trans. Ind. Appl., vol. 50, no. 1, pp. 424-432,
-    2014, from memory; the exact inner-loop bound is empty there, shared
-    notes section 2.2 item 2, derived). L1 = L2 = 1 mH, C chosen so that
+    2014, from memory; derived: the damping loop alone has the characteristic
+    polynomial z^3 - 2c z^2 + (1 + k) z - k, c = cos(wr Ts), whose Jury range
+    0 < k < 2c - 1 is empty at c = 1/2). L1 = L2 = 1 mH, C chosen so that
     fr = fs/6 at fs = 10 kHz, small Kp (0.05 (L1+L2) fs)."""
     L1 = L2 = 1e-3
     fs = 10e3

@@ -273,7 +273,10 @@ def test_rate_check_uses_grid_inductance_after_a_step():
 
 
 def test_matrix_pencil_recovers_known_modes():
-    # Hua & Sarkar 1990: noise-free sum of damped sinusoids is recovered exactly.
+    # Y. Hua and T. K. Sarkar, "Matrix pencil method for estimating parameters of
+    # exponentially damped/undamped sinusoids in noise", IEEE Trans. Acoust., Speech,
+    # Signal Process., vol. 38, no. 5, 1990 (from memory): a noise-free sum of damped
+    # sinusoids is recovered exactly.
     k = np.arange(120)
     z1 = 0.97 * np.exp(1j * 0.6)
     z2 = 0.9 * np.exp(1j * 1.7)

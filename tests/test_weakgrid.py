@@ -83,8 +83,8 @@ def test_resonance_against_closed_form_and_state_space():
 
 def test_critical_crossing_check_value():
     """Lg* = (L1 + L2 - w^2 L1 L2 C)/(w^2 L1 C - 1) for L1 = L2 = 1 mH,
-    C = 10 uF, w = 2 pi fs/6, fs = 10 kHz: 9.3495 mH (derived value,
-    shared notes section 6, D14; not a published number)."""
+    C = 10 uF, w = 2 pi fs/6, fs = 10 kHz: 9.3495 mH (derived: the resonance
+    formula below solved for Lg, evaluated by hand; not a published number)."""
     lg = critical_crossing_lg(1e-3, 10e-6, 1e-3, 10e3 / 6)
     assert lg == pytest.approx(9.3495e-3, abs=5e-8)
     # round trip through the resonance formula (Liserre et al. 2005, from memory)
@@ -203,10 +203,12 @@ def test_grid_feedback_boundary_tends_to_critical_crossing():
     lies above the critical frequency fs/6 and unstable below it, in the
     limit of small controller gain (S. G. Parker, B. P. McGrath and
     D. G. Holmes, "Regions of Active Damping Control for LCL Filters", IEEE
-    Trans. Ind. Appl., vol. 50, no. 1, pp. 424-432, 2014, from memory; the
-    limit behaviour is checked numerically in the shared notes, section 2.2
-    item 4, derived). So the Lg where stability is lost tends to the closed
-    form Lg* as Kp -> 0 (L1 = L2 = 1 mH, C = 10 uF, fs = 10 kHz)."""
+    Trans. Ind. Appl., vol. 50, no. 1, pp. 424-432, 2014, from memory; as a
+    limit of small gain it is derived: the damping that the resonant term of
+    Kp*G_i2 lends the resonant poles changes sign where the delay-and-hold
+    phase -(delay + 1/2) w Ts passes -90 deg).
+    So the Lg where stability is lost tends to the closed form Lg* as Kp -> 0
+    (L1 = L2 = 1 mH, C = 10 uF, fs = 10 kHz)."""
     L1 = L2 = 1e-3
     lg_star = critical_crossing_lg(L1, 10e-6, L2, 10e3 / 6)
     ends = []
@@ -223,9 +225,10 @@ def test_fractional_delay_moves_the_critical_frequency():
     """With a computation delay of 0.75 samples the critical frequency is
     fs/(4*0.75 + 2) = fs/5 (Pan, Ruan, Bao, Li and Wang, IEEE Trans. Power
     Electron., vol. 29, no. 7, pp. 3414-3427, 2014, from memory, for the
-    general idea; the formula fs/(4*delay + 2) is derived in the shared
-    notes section 2.2). Small-gain grid-current feedback loses stability
-    close to where the resonance crosses fs/5."""
+    general idea; the formula fs/(4*delay + 2) is derived: the delay and the
+    hold lag by (delay + 1/2) w Ts, which reaches 90 deg there). Small-gain
+    grid-current feedback loses stability close to where the resonance
+    crosses fs/5."""
     L1 = L2 = 1e-3
     d = _design(L1, 10e-6, L2, 10e3, 0.75, "grid", "P", 0.005 * (L1 + L2) * 10e3, 0.0, 0.0)
     lg5 = critical_crossing_lg(L1, 10e-6, L2, 10e3 / 5)
