@@ -187,9 +187,7 @@ def test_option_changes_axis_and_ignores_old_range(case):
 
 
 def test_weak_grid_demo_case_runs_and_agrees_with_check(tmp_path):
-    case = REPO / "cases" / "commercial-30kva-weak-grid.toml"
-    if not case.exists():
-        pytest.skip("demo case not present")
+    case = REPO / "cases" / "commercial-30kva-weak-grid.toml"  # a demo case: its absence is a failure
     r = run([case, "--x", "Lg", "--y", "Hi", "--x-points", 10, "--y-points", 10, "--json", "-o", tmp_path / "w.png"])
     assert r.exit_code == 0, r.stderr
     rec = json.loads(r.stdout)
