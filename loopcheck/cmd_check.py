@@ -10,6 +10,13 @@ import typer
 from loopcheck.cli_common import EXIT_UNSTABLE, json_line, load_cases, print_warnings
 
 
+CAUTION = (
+    "caution: model results only. Grid-connected converters carry lethal voltages and an unstable loop can "
+    "destroy hardware; verify at reduced voltage with protection. Local codes, the utility's interconnection "
+    "rules and a licensed engineer's sign-off take precedence."
+)
+
+
 def check(
     cases: Annotated[
         list[Path],
@@ -50,5 +57,8 @@ def check(
             if i:
                 typer.echo("")
             typer.echo(format_summary(case, result))
+    if not json_output and loaded:
+        typer.echo("")
+        typer.echo(CAUTION)
     if fail_on_unstable and any_unstable:
         raise typer.Exit(EXIT_UNSTABLE)

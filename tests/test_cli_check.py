@@ -167,6 +167,10 @@ def test_human_summary_has_units_and_sections(tmp_path):
         assert needle in out, needle
     assert " Hz" in out and " deg" in out and " dB" in out
     assert "L1 = 1.8 mH" in out and "C = 4.7 uF" in out
+    # the closing caution of the human output (not in --json)
+    caution = out.strip().splitlines()[-1]
+    assert caution.startswith("caution:") and "lethal voltages" in caution and "interconnection" in caution
+    assert "caution" not in invoke("check", path, "--json").stdout
 
 
 def test_version():
