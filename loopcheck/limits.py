@@ -32,6 +32,17 @@ they fall in (loopcheck's assumption).
 
 Local codes and the utility's interconnection requirements govern; these
 tables are an aid for design, not a compliance test.
+
+References
+----------
+.. [1] IEEE Std 519-2014, "IEEE Recommended Practice and Requirements for
+   Harmonic Control in Electric Power Systems", Table 2 (values as reprinted
+   from the 1992 edition in [3]).
+.. [2] IEEE Std 1547-2018, "IEEE Standard for Interconnection and
+   Interoperability of Distributed Energy Resources with Associated Electric
+   Power Systems Interfaces", clause 7.3, Tables 26 and 27 (from memory).
+.. [3] A. Kusko and M. T. Thompson, "Power Quality in Electrical Systems",
+   McGraw-Hill, 2007, p. 17.
 """
 
 from __future__ import annotations

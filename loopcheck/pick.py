@@ -31,6 +31,16 @@ alone favours a low Kp (slower loop), so Kp is kept inside a range
 (default 0.5 to 2 times the case's Kp).
 
 Pure computation; nothing prints.
+
+References
+----------
+.. [1] R. P. Brent, "Algorithms for Minimization without Derivatives",
+   Prentice-Hall, 1973, ch. 5 (the bounded one-dimensional search, as in
+   scipy.optimize.minimize_scalar(method="bounded"); from memory).
+.. [2] S. G. Parker, B. P. McGrath and D. G. Holmes, "Regions of Active
+   Damping Control for LCL Filters", IEEE Trans. Ind. Appl., vol. 50, no. 1,
+   pp. 424-432, 2014 (the critical frequency whose crossing is added to the
+   Lg samples; from memory).
 """
 
 from __future__ import annotations
