@@ -9,6 +9,10 @@ Filter values below are invented for the tests (a few-kW scenario).
 """
 
 import math
+import os
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -135,3 +139,23 @@ def test_split_capacitor_resonance_tends_to_total_capacitance():
     eig = np.linalg.eigvals(ss.A)
     wr = 2 * math.pi * resonance_hz(P["L1_H"], P["C_F"] + P["Cd_F"], LT)
     assert np.max(np.abs(eig.imag)) == pytest.approx(wr, rel=1e-6)
+
+
+def test_analysis_code_paths_do_not_import_sympy():
+    # Project rule: sympy is imported only by loopcheck.symbolic (slow import,
+    # reference route only). A fresh interpreter runs an analysis and must
+    # not have loaded it.
+    code = (
+        "import sys\n"
+        "from loopcheck.model import Control, Design, Filter, Grid, Sampling\n"
+        "from loopcheck.analysis import analyse\n"
+        "analyse(Design(Filter(1e-3, 1e-5, 5e-4), Grid(), Sampling(1e4), Control('grid', 'P', 5.0, Hi_V_per_A=3.0)))\n"
+        "print('sympy' in sys.modules)\n"
+    )
+    root = Path(__file__).resolve().parents[1]
+    out = subprocess.run(
+        [sys.executable, "-c", code], cwd=root, capture_output=True, text=True,
+        env={**os.environ, "PYTHONPATH": str(root)},
+    )
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "False"
