@@ -217,11 +217,13 @@ def bode_figure(design, analysis, loop=None, curve: LoopCurve | None = None, tit
     fc = analysis.critical_hz
     crit = critical_label(design.sampling.delay)
     for ax in (ax_m, ax_p):
+        # behind the curve (zorder 1.5 < 2): a lightly damped resonance is a spike
+        # a few hertz wide that the marker line must not hide
         if fr < f_ny:
-            ax.axvline(fr, color=c["green"], lw=1.4, ls="-.")
+            ax.axvline(fr, color=c["green"], lw=1.4, ls="-.", zorder=1.5)
         if fc < f_ny:
-            ax.axvline(fc, color=c["orange"], lw=1.4, ls=":")
-        ax.axvline(f_ny, color=c["black"], lw=2.0, ls="--")
+            ax.axvline(fc, color=c["orange"], lw=1.4, ls=":", zorder=1.5)
+        ax.axvline(f_ny, color=c["black"], lw=2.0, ls="--", zorder=1.5)
     # named ticks on a top axis (no text over the curve)
     top = ax_m.secondary_xaxis("top")
     ticks, names = [], []
@@ -274,10 +276,12 @@ def bode_figure(design, analysis, loop=None, curve: LoopCurve | None = None, tit
         y0, y1 = ax_m.get_ylim()
         above = gdb < 0.5 * (y0 + y1)  # label towards the middle of the axes
         at_edge = fx >= f_ny * (1.0 - 1e-9)
+        # beside the marker, not on its vertical: a -180 deg crossing often sits on the tip of
+        # a narrow resonance spike, which a centred label would cover
         ax_m.annotate(
-            _factor_text(pc.factor), xy=(fx, gdb), xytext=(-6 if at_edge else 0, 9 if above else -9),
+            _factor_text(pc.factor), xy=(fx, gdb), xytext=(-6 if at_edge else 6, 9 if above else -9),
             textcoords="offset points", rotation=90, fontsize=7.5, va="bottom" if above else "top",
-            ha="right" if at_edge else "center", color="#7a3563",
+            ha="right" if at_edge else "left", color="#7a3563",
             bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8),
         )
 
