@@ -12,7 +12,7 @@ import warnings
 
 import numpy as np
 import pytest
-from scipy.optimize import brentq
+from scipy.optimize import brentq, minimize_scalar
 from scipy.signal import place_poles
 
 from loopcheck import margins as mg
@@ -276,15 +276,25 @@ def brute_loop_function(d):
 
 def brute_crossovers_hz(L, Ts, n=400_000):
     """All |L| = 1 on a dense grid (log-spaced from 0.01 Hz, then uniform),
-    refined by bisection on the same brute-force L."""
+    refined by bisection on the same brute-force L; and the sensitivity
+    peak max |1/(1 + L)| on that grid, refined by a bounded search around
+    the best point."""
     w = np.unique(np.concatenate([np.geomspace(2 * math.pi * 0.01 * Ts, 0.02, 50_000), np.linspace(0.02, math.pi, n)]))
-    g = np.log(np.abs(L(np.exp(1j * w))))
+    Lw = L(np.exp(1j * w))
+    g = np.log(np.abs(Lw))
     idx = np.nonzero(np.sign(g[:-1]) * np.sign(g[1:]) < 0)[0]
 
     def f(x):
         return float(np.log(np.abs(L(np.exp(1j * np.array([x])))[0])))
 
-    return [brentq(f, w[i], w[i + 1], xtol=1e-15) / (2 * math.pi * Ts) for i in idx]
+    cross = [brentq(f, w[i], w[i + 1], xtol=1e-15) / (2 * math.pi * Ts) for i in idx]
+    S = np.abs(1 / (1 + Lw))
+    i = int(np.argmax(S))
+    res = minimize_scalar(
+        lambda x: -abs(1 / (1 + L(np.exp(1j * np.array([x])))[0])),
+        bounds=(w[max(i - 1, 0)], w[min(i + 1, w.size - 1)]), method="bounded", options={"xatol": 1e-13},
+    )
+    return cross, max(float(S[i]), float(-res.fun))
 
 
 def brute_gain_interval(loop, tol=1e-9):
@@ -323,8 +333,8 @@ def test_pr_with_13th_harmonic_at_50khz_against_brute_force(feedback, wc, Kr, de
     # Margins must stay accurate for a PR controller with resonators up to
     # the 13th harmonic at fs = 50 kHz (issue requirement): crossovers and the
     # gain-margin interval agree with the brute-force route to 1e-6 relative,
-    # and the interval ends are confirmed by eigenvalues just inside and
-    # outside (k (1 -+ 1e-6)).
+    # the sensitivity peak agrees too, and the interval ends are confirmed by
+    # eigenvalues just inside and outside (k (1 -+ 1e-6)).
     fs = 50e3
     L1, L2, C, Lg = 0.9e-3, 0.3e-3, 4.0e-6, 0.1e-3
     ctl = Control(
@@ -337,7 +347,8 @@ def test_pr_with_13th_harmonic_at_50khz_against_brute_force(feedback, wc, Kr, de
     loop, L = brute_loop_function(d)
     z = np.exp(1j * np.linspace(1e-3, 3.0, 500))
     assert np.max(np.abs(L(z) / loop.loop_response(z) - 1)) < 1e-9
-    bc = brute_crossovers_hz(L, 1 / fs)
+    bc, S_peak = brute_crossovers_hz(L, 1 / fs)
+    assert a.sensitivity_peak.value == pytest.approx(S_peak, rel=1e-6)
     ours = [c.frequency_hz for c in a.crossovers]
     assert len(ours) == len(bc)
     np.testing.assert_allclose(ours, bc, rtol=1e-6)
