@@ -148,7 +148,8 @@ def test_fractional_delay_sides_by_eigenvalues(delay):
     # memory): a small positive Hi damps below it and not above it;
     # undamped grid-current feedback is stable only above it (Parker et al.
     # 2014 for delay 1, from memory; the same residue argument for any delay,
-    # derived in the project notes).
+    # derived: the resonant residue of the loop changes sign at the same
+    # frequency as the delay-plus-hold phase -(delay + 1/2) w Ts reaches -90 deg).
     fc = 1 / (4 * delay + 2)
     for ratio, below in ((0.93 * fc, True), (1.07 * fc, False)):
         hi_small = 0.01 * L1 / TS
@@ -201,8 +202,8 @@ def test_exact_inner_bound_against_engine_eigenvalues(ratio):
 
 def test_inner_bound_table_values():
     # Normalised exact bound kd = Hi_max Ts / L1 at fr/fs = 0.05 ... 0.15
-    # (derived values in the project notes, section 2.2 item 2, computed
-    # there by an independent root scan): 0.9171, 0.7853, 0.6607, 0.5044, 0.2045.
+    # (derived values, not published: computed when the project was planned
+    # by an independent root scan of z^3 - 2cz^2 + (1+k)z - k): 0.9171, 0.7853, 0.6607, 0.5044, 0.2045.
     got = []
     for ratio in (0.05, 0.08, 0.10, 0.12, 0.15):
         d = design(ratio)
@@ -220,7 +221,7 @@ def test_inner_bound_table_values():
 def test_grid_current_plus_ccf_boundary(ratio, delay, Lg):
     # Grid-current P control plus capacitor-current damping: the resonant
     # terms of Kp*G_i2 and Hi*G_ic cancel exactly at Hi = Kp L1/(L1 + L2 + Lg)
-    # (derived, project notes section 2.2 item 3: both share the factor of the
+    # (derived: both share the factor of the
     # resonant mode, with weights -Kp/(L1+L2+Lg) and Hi/L1), so the resonant
     # poles sit on the unit circle there; below the critical frequency larger
     # Hi is stable, above it smaller Hi is.

@@ -91,9 +91,9 @@ def test_delay_one_is_zoh_times_inverse_z(kind):
 
 
 def test_closed_forms_reduce_to_the_published_delay_one_form():
-    # G_i2(z) for one sample of delay, as printed by Parker, McGrath & Holmes,
+    # G_i2(z) for one sample of delay, as given by Parker, McGrath & Holmes,
     # "Regions of Active Damping Control for LCL Filters", IEEE Trans. Ind.
-    # Appl. 50(1), 2014 (from memory; form re-derived in the project notes):
+    # Appl. 50(1), 2014 (from memory; the form is re-derived here with sympy):
     #   G_i2(z) = z^-1 (1/(L1+L2)) [Ts/(z-1) - (sin(th)/wr) (z-1)/(z^2 - 2 z cos(th) + 1)]
     #   G_ic(z) = z^-1 (1/L1) (sin(th)/wr) (z-1)/(z^2 - 2 z cos(th) + 1),  th = wr Ts
     d = symbolic.derive_discrete_lossless()

@@ -134,8 +134,8 @@ def test_margins_match_python_control_on_open_loop_stable_loops(ratio, delay):
 
 
 def test_python_control_misses_the_nyquist_frequency_crossing():
-    # Documented python-control 0.10.2 behaviour (project notes, ecosystem
-    # study, item 3): its discrete-time gain-margin search keeps only
+    # python-control 0.10.2 behaviour, read in its source (control/margins.py,
+    # stability_margins): its discrete-time gain-margin search keeps only
     # 0 <= arg z < pi, so L(z) = 0.5/z gets GM = inf although the closed-loop
     # pole -0.5 k reaches z = -1 at k = 2 (elementary root locus; common
     # practice). Our margin code must report the interval (0, 2).
@@ -217,9 +217,10 @@ def test_winding_number_on_an_open_loop_unstable_first_order_loop(k, closed_unst
 def test_nyquist_count_with_open_loop_unstable_damping_loop(hi_factor, R):
     # Resonance at fs/4 (above fs/6) with positive capacitor-current gain: the
     # damping loop puts two poles outside the circle (Pan et al., IEEE Trans.
-    # Power Electron. 29(7), 2014, from memory; project notes section 3.1).
+    # Power Electron. 29(7), 2014, from memory).
     # The closed loop is stable for Hi below Kp L1/(L1+L2) and unstable above
-    # (derived, notes section 2.2 item 3). Winding = P - Z must hold and must
+    # (derived: the resonant residues of Kp*G_i2 and Hi*G_ic cancel there).
+    # Winding = P - Z must hold and must
     # agree with python-control nyquist_response (which is right here: no
     # closed-loop poles near the circle; clockwise count, Z = count + P).
     import control as ct
