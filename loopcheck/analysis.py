@@ -39,7 +39,14 @@ def analyse(design: Design, tol: float = TOLERANCE) -> Analysis:
 
     The loop is broken at the current controller with the damping loop
     closed; see :mod:`loopcheck.loop` and :mod:`loopcheck.margins`."""
-    loop = build_loop(design)
+    return analyse_loop(design, build_loop(design), tol)
+
+
+def analyse_loop(design: Design, loop: Loop, tol: float = TOLERANCE) -> Analysis:
+    """Verdict and margins of ``loop``, a loop of ``design`` whose controller
+    or damping gain may differ from the design's own (e.g. the controller
+    rebuilt from quantised firmware coefficients). ``design`` supplies the
+    sampling, the resonance and the resonator frequencies."""
     Ts = design.sampling.Ts_s
     A_ol, B_ol, C_ol = loop.open_loop()
     cl_poles = np.linalg.eigvals(A_ol - B_ol @ C_ol)

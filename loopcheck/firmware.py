@@ -63,12 +63,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import margins as mg
+from .analysis import analyse_loop
 from .controller import DiscreteSS, controller_blocks, parallel, proportional_block
 from .loop import build_loop
 from .model import Design
 from .results import GainMargin
-from .verdict import TOLERANCE, classify
+from .verdict import TOLERANCE
 
 __all__ = [
     "ROUNDING_MODES",
@@ -599,11 +599,6 @@ def controller_frequency_response(coeffs: ControllerCoefficients, f_hz, Ts_s: fl
 # ---------------------------------------------------------------------------
 
 
-#: Angle step [rad/sample] used when the loop gain is evaluated exactly on a
-#: pole of the controller on the unit circle (the value there is infinite).
-POLE_STEP_RAD = 1e-12
-
-
 @dataclass(frozen=True)
 class LoopFigures:
     """Verdict and margins of the loop with a given controller.
@@ -671,69 +666,27 @@ def loop_figures(design: Design, coeffs: ControllerCoefficients, fb_scale: float
     The plant, delay and damping loop come from :func:`loopcheck.loop.build_loop`
     (with Hi = coeffs.Hi / ic_scale); the controller is rebuilt from the
     sections and connected with :func:`loopcheck.loop.series_open_loop`.
-    Verdict from the closed-loop eigenvalues; crossovers, -180 deg crossings,
-    stable gain intervals and the sensitivity peak with the routines of
-    :mod:`loopcheck.margins` (see there for the methods and references)."""
+    Verdict and margins by :func:`loopcheck.analysis.analyse_loop`, the
+    same code as for the design itself (see :mod:`loopcheck.margins` for the
+    methods and references)."""
     Hi = coeffs.Hi / ic_scale
     blocks = [proportional_block(coeffs.Kp / fb_scale)] + [section_block(s, fb_scale) for s in coeffs.sections]
     base = build_loop(design, Hi_V_per_A=Hi)
     loop = dataclasses.replace(base, controller=parallel(blocks), blocks=tuple(blocks))
-    Ts = design.sampling.Ts_s
-    A_ol, B_ol, C_ol = loop.open_loop()
-    BC = B_ol @ C_ol
-    cl = np.linalg.eigvals(A_ol - BC)
-    radius = float(np.max(np.abs(cl)))
-    verdict = classify(radius, tol)
-
-    def L(z):
-        z = np.asarray(z, dtype=complex)
-        with np.errstate(all="ignore"):
-            v = _ctrl_at(coeffs, z, fb_scale) * loop.plant_response(z)
-            bad = ~np.isfinite(v)
-            if np.any(bad):  # exactly on a controller pole: step off it by 1e-12 rad (a huge finite value)
-                zb = z[bad] * np.exp(1j * POLE_STEP_RAD)
-                v[bad] = _ctrl_at(coeffs, zb, fb_scale) * loop.plant_response(zb)
-            return v
-
-    def Lw(w):
-        return L(np.exp(1j * np.asarray(w)))
-
-    ol = np.linalg.eigvals(A_ol)
-    special = sorted({abs(float(np.angle(p))) for p in ol if abs(p) > 0.5 and abs(p.imag) > 1e-12})
-    w = mg.frequency_grid(Ts, special)
-    Lv = Lw(w)
-    to_hz = 1.0 / (2.0 * math.pi * Ts)
-    pms, cross_hz = [], []
-    for wc in mg.gain_crossovers(L, w, Lv):
-        v = Lw([wc])[0]
-        ph = mg.wrap_deg(math.degrees(math.atan2(v.imag, v.real)))
-        pms.append(abs(mg.wrap_deg(180.0 + ph)))
-        cross_hz.append(wc * to_hz)
-    crossings = mg.real_axis_crossings(L, w, Lv)
-
-    def is_stable(ks):
-        Acl = A_ol[None] - np.asarray(ks)[:, None, None] * BC[None]
-        return np.abs(np.linalg.eigvals(Acl)).max(axis=-1) < 1.0 - tol
-
-    gm = None
-    if verdict == "stable":
-        for lo, hi in mg.stable_intervals(mg.interval_candidates(crossings), is_stable):
-            if lo <= 1.0 and (hi is None or hi >= 1.0):
-                gm = GainMargin(lo, hi, None if lo == 0.0 else 20 * math.log10(lo), None if hi is None else 20 * math.log10(hi))
-    S, wS = mg.sensitivity_peak(L, w, Lv)
-    z1 = np.array([np.exp(1j * 2 * math.pi * design.grid.f_hz * Ts)])
+    a = analyse_loop(design, loop, tol)
+    z1 = np.array([np.exp(1j * 2 * math.pi * design.grid.f_hz * design.sampling.Ts_s)])
     with np.errstate(all="ignore"):
-        L1 = L(z1)[0]
+        L1 = _ctrl_at(coeffs, z1, fb_scale)[0] * loop.plant_response(z1)[0]
         e1 = abs(1.0 / (1.0 + L1)) if np.isfinite(L1) else 0.0
     return LoopFigures(
-        verdict=verdict,
-        stable=verdict == "stable",
-        spectral_radius=radius,
-        phase_margin_deg=min(pms) if (verdict == "stable" and pms) else None,
-        crossover_hz=tuple(cross_hz),
-        gain_margin=gm,
-        sensitivity_peak=float(S),
-        sensitivity_peak_hz=float(wS * to_hz),
+        verdict=a.verdict,
+        stable=a.stable,
+        spectral_radius=a.spectral_radius,
+        phase_margin_deg=a.phase_margin_deg,
+        crossover_hz=tuple(c.frequency_hz for c in a.crossovers),
+        gain_margin=a.gain_margin,
+        sensitivity_peak=a.sensitivity_peak.value,
+        sensitivity_peak_hz=a.sensitivity_peak.frequency_hz,
         fundamental_error=float(e1),
     )
 
