@@ -97,8 +97,6 @@ def analyse_loop(design: Design, loop: Loop, tol: float = TOLERANCE) -> Analysis
                     None if a == 0.0 else 20 * math.log10(a),
                     None if b is None else 20 * math.log10(b),
                 )
-        if gm is None:  # a crossing was missed by the grid: say nothing rather than a wrong number
-            gm = None
 
     S, wS = mg.sensitivity_peak(L, w, Lv)
 
@@ -127,7 +125,7 @@ def analyse_loop(design: Design, loop: Loop, tol: float = TOLERANCE) -> Analysis
         critical_hz=fc,
         resonance_side="below" if fr < fc else "above",
         open_loop_unstable_poles=count_outside(ol_poles, tol),
-        open_loop_circle_poles=count_on_circle(ol_poles, 1e-7),
+        open_loop_circle_poles=count_on_circle(ol_poles, tol),
         crossovers=tuple(crossovers),
         phase_margin_deg=pm,
         phase_crossings=tuple(phase_crossings),

@@ -96,6 +96,7 @@ from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space
+from .margins import POLE_AT_POINT_TOL
 from .verdict import TOLERANCE
 
 #: Parameters a map axis can sweep (case-file names; "fr/fs" is a ratio).
@@ -1209,9 +1210,14 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         real = np.isfinite(v) & (np.abs(v.imag) <= 1e-7 * np.abs(v)) & (v.real < 0)
         k_pt = [ii[real]]
         k_val = [-1.0 / v.real[real]]
-        for z0, lim in ((-1.0, np.inf), (1.0, 1e12)):
+        # z = +-1 are real-axis points, unless an open-loop pole sits there
+        # (the lossless plant's integrator at z = 1): L is infinite there
+        # even when rounding makes it merely huge
+        plant_poles = data.lam[data.pidx[pi]]
+        for z0 in (-1.0, 1.0):
             v0 = L1(rows, np.full(S, math.acos(z0)))
-            ok = np.isfinite(v0) & (np.abs(v0) < lim) & (np.abs(v0) > 0) & (v0.real < 0)
+            pole = np.any(np.abs(plant_poles - z0) < POLE_AT_POINT_TOL, axis=1)
+            ok = np.isfinite(v0) & ~pole & (np.abs(v0) > 0) & (v0.real < 0)
             k_pt.append(rows[ok])
             k_val.append(-1.0 / v0.real[ok])
         kp = np.concatenate(k_pt)

@@ -68,6 +68,7 @@ import numpy as np
 from loopcheck.controller import controller_blocks, parallel
 from loopcheck.discretize import discretize_plant
 from loopcheck.loop import OUTPUT_I1, OUTPUT_I2, close_damping_loop, series_open_loop
+from loopcheck.margins import POLE_AT_POINT_TOL
 from loopcheck.model import Design, resonance_hz
 from loopcheck.plant import lcl_state_space
 from loopcheck.tolerance import ComponentValues, ToleranceSpec, corner_factors, corner_values
@@ -525,10 +526,14 @@ def _chunk_margins(design: Design, rows: _Rows, sl: slice, stable_rows: np.ndarr
         ks_r.append(ri[ok])
         ks_k.append(-1.0 / v.real[ok])
     allr = np.arange(N)
-    for z0, lim in ((-1.0, np.inf), (1.0, 1e12)):
+    # z = +-1 are real-axis points, unless an open-loop pole sits there (the
+    # lossless plant's integrator at z = 1): L is infinite there even when
+    # rounding makes it merely huge
+    for z0 in (-1.0, 1.0):
         v = ev(allr, np.full(N, z0 + 0j))
+        pole = np.any(np.abs(ev.lam - z0) < POLE_AT_POINT_TOL, axis=1)
         with np.errstate(all="ignore"):
-            ok = np.isfinite(v) & (np.abs(v) > 0) & (np.abs(v) < lim) & (v.real < 0)
+            ok = np.isfinite(v) & ~pole & (np.abs(v) > 0) & (v.real < 0)
         ks_r.append(allr[ok])
         ks_k.append(-1.0 / v.real[ok])
     kr = np.concatenate(ks_r)
