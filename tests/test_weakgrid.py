@@ -334,3 +334,25 @@ def test_parse_targets_units_and_errors():
         parse_targets({"gain_margn": "3 dB"}, "x.toml: [targets]")
     with pytest.raises(CaseError, match="sensitivity_peak"):
         parse_targets({"sensitivity_peak": "-1 dB"}, "x.toml: [targets]")
+
+
+def test_lossless_integrator_at_z_equal_one_is_no_gain_limit_in_sweeps():
+    # Lossless filter with large inductors: the plant integrator sits at z = 1,
+    # where rounding leaves |L| merely huge (~1e11). z = 1 is then no
+    # real-axis crossing: with a P controller the integrator pole moves
+    # inside for every small controller gain (elementary root locus; common
+    # practice), so the gain may fall to 0. The batched margins of the
+    # weak-grid sweep and of the map must say so, like analyse() does.
+    from loopcheck import maps
+
+    L1, C = 0.007498942093324558, 2.955203238012614e-07
+    d = Design(
+        Filter(L1, C, L1, damping=PassiveDamping("series-R", 1.0)), Grid(50.0, 0.0, Lg_range_H=(0.0, 1e-4)),
+        Sampling(19125.0, 0.5), Control("grid", "P", Kp_V_per_A=0.2868345350696644),
+    )
+    assert analyse(d).gain_margin.lower_factor == 0.0
+    assert sweep_grid(d).worst.margins.gm_lower_factor == 0.0
+    spec = maps.MapSpec(maps.Axis("Kp", 0.2, 0.3, 3), maps.Axis("Hi", 0.0, 0.1, 3), metrics=("gain-margin",))
+    m = maps.compute_map(d, spec)
+    assert m.stable.all()
+    assert np.all(m.gain_margin_lower == 0.0)
