@@ -32,6 +32,8 @@ import tempfile
 from collections.abc import Callable, Iterator, Sequence
 from typing import NoReturn
 
+from loopcheck.figure_io import FIGURE_SUFFIXES
+
 import typer
 
 EXIT_OK = 0
@@ -158,6 +160,27 @@ def check_output(path: str | os.PathLike | None, option: str, directory: bool = 
 def write_failure(option: str, path: str | os.PathLike, exc: OSError) -> NoReturn:
     """Fail (one line, exit 2) for an OSError raised while writing ``path``."""
     fail(f"{option} {os.fspath(path)}: cannot write it ({exc.strerror or exc})")
+
+
+def check_figure_output(path: str | os.PathLike | None, option: str = "-o") -> None:
+    """Fail (one line, exit 2) unless ``path`` is a writable .png/.svg/.pdf file name."""
+    if path is None:
+        return
+    if os.path.splitext(os.fspath(path))[1].lower() not in FIGURE_SUFFIXES:
+        fail(f"{option} {os.fspath(path)}: the figure must end in .png, .svg or .pdf")
+    check_output(path, option)
+
+
+def write_figure(fig, path: str | os.PathLike, option: str = "-o", dpi: int = 130) -> None:
+    """Write a figure atomically (nothing half-written); a write error fails
+    with one line naming the option and the path (exit 2)."""
+    from loopcheck.figure_io import save_figure
+
+    try:
+        with atomic_path(path) as tmp:
+            save_figure(fig, tmp, dpi=dpi)
+    except OSError as exc:
+        write_failure(option, path, exc)
 
 
 

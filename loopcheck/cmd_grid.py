@@ -11,14 +11,13 @@ import typer
 
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
-    atomic_path,
-    check_output,
+    check_figure_output,
     fail,
     json_line,
     load_case,
     print_warnings,
     progress,
-    write_failure,
+    write_figure,
 )
 
 #: One-line caution printed with every result (README "Safety" has the full text).
@@ -290,9 +289,7 @@ def grid(
     when some Lg in the range is unstable for the nominal filter or a corner.
     """
     loaded = load_case(case)
-    if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
-        fail(f"-o {output}: the figure must end in .png, .svg or .pdf")
-    check_output(output, "-o")
+    check_figure_output(output)
     lo, hi = lg_range_or_fail(loaded, lg_range)
     spec, targets = read_spec_and_targets(loaded, nominal_only, phase_margin, gain_margin, sensitivity_peak)
     scr_of = _scr_function(loaded.design)
@@ -320,11 +317,7 @@ def grid(
 
         fig = grid_figure(res, design_Lg_H=loaded.design.grid.Lg_H, scr_of=scr_of if vs_scr else None,
                           title=loaded.design.name)
-        try:
-            with atomic_path(output) as tmp:
-                fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
-        except OSError as exc:
-            write_failure("-o", output, exc)
+        write_figure(fig, output)
 
     unstable_somewhere = not res.nominal.scan.fully_stable or any(not f.scan.fully_stable for f in res.corners)
     if json_output:

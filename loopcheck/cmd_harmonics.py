@@ -8,7 +8,15 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import atomic_path, check_output, fail, json_line, load_case, print_warnings, warn
+from loopcheck.cli_common import (
+    check_figure_output,
+    fail,
+    json_line,
+    load_case,
+    print_warnings,
+    warn,
+    write_figure,
+)
 
 CAUTION = (
     "Design aid, not a compliance test: the limits apply at the point of common coupling and are "
@@ -36,9 +44,7 @@ def harmonics(
     Exit codes: 0 the check ran (whatever its outcome); 2 bad input.
     """
     loaded = load_case(case)
-    if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
-        fail(f"{output}: the figure must end in .png, .svg or .pdf")
-    check_output(output, "-o")
+    check_figure_output(output)
     from loopcheck.casefile import CaseError
     from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
 
@@ -75,14 +81,9 @@ def harmonics(
     files = []
     if output is not None:
         from loopcheck.harmonics_plot import harmonics_figure
-        from loopcheck.sim_plot import save_figure
 
         fig = harmonics_figure(check, name=design.name)
-        try:
-            with atomic_path(output) as tmp:
-                save_figure(fig, tmp)
-        except OSError as exc:
-            fail(f"{output}: cannot write the figure ({exc.strerror or exc})")
+        write_figure(fig, output)
         files.append(str(output))
 
     if json_output:

@@ -8,8 +8,8 @@ from typing import Annotated, Optional
 import typer
 
 from loopcheck.cli_common import (
-    atomic_path,
     atomic_write_text,
+    check_figure_output,
     check_output,
     fail,
     json_line,
@@ -17,9 +17,9 @@ from loopcheck.cli_common import (
     print_warnings,
     progress,
     write_failure,
+    write_figure,
 )
 
-FIGURE_SUFFIXES = (".png", ".svg", ".pdf")
 _AXES_HELP = "fr/fs, fs, Lg, Kp, Hi, C, L2, L1, Kr or Ki"
 
 
@@ -65,9 +65,7 @@ def map_command(
     Axes come from the case's [map] table (see docs/maps.md); the options
     override it. Exit codes: 0 the map was computed; 2 bad input.
     """
-    if output is not None and output.suffix.lower() not in FIGURE_SUFFIXES:
-        fail(f"-o {output}: the figure format follows the suffix; use .png, .svg or .pdf")
-    check_output(output, "-o")
+    check_figure_output(output)
     check_output(csv_path, "--csv")
     loaded = load_case(case)
     print_warnings(loaded)
@@ -94,15 +92,11 @@ def map_command(
         smap = compute_map(design, spec, progress=lambda fraction: advance(100.0 * fraction))
 
     if output is not None:
-        from loopcheck.map_plot import map_figure, save_figure
+        from loopcheck.map_plot import map_figure
 
         kr_unit = "V/A" if design.control.wc_rad_s > 0 else "V/A/s"
         fig = map_figure(smap, kr_unit=kr_unit)
-        try:
-            with atomic_path(output) as tmp:
-                save_figure(fig, tmp)
-        except OSError as exc:
-            write_failure("-o", output, exc)
+        write_figure(fig, output, dpi=150)
     if csv_path is not None:
         try:
             atomic_write_text(csv_path, csv_text(smap))

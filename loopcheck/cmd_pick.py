@@ -11,14 +11,13 @@ import typer
 
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
-    atomic_path,
-    check_output,
+    check_figure_output,
     fail,
     json_line,
     load_case,
     print_warnings,
     progress,
-    write_failure,
+    write_figure,
 )
 from loopcheck.cmd_grid import CAUTION, FractionBar, lg_range_or_fail, read_spec_and_targets, worst_dict
 
@@ -163,9 +162,7 @@ def pick(
     gain meets the targets.
     """
     loaded = load_case(case)
-    if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
-        fail(f"-o {output}: the figure must end in .png, .svg or .pdf")
-    check_output(output, "-o")
+    check_figure_output(output)
     lo, hi = lg_range_or_fail(loaded, lg_range)
     spec, targets = read_spec_and_targets(loaded, nominal_only, phase_margin, gain_margin, sensitivity_peak)
     hr = _gain_range("--hi-range", hi_range)
@@ -185,11 +182,7 @@ def pick(
 
         fig = pick_figure(res, design_Hi_V_per_A=loaded.design.control.Hi_V_per_A,
                           title=loaded.design.name)
-        try:
-            with atomic_path(output) as tmp:
-                fig.savefig(tmp, dpi=110, metadata={"Software": None} if output.suffix.lower() == ".png" else None)
-        except OSError as exc:
-            write_failure("-o", output, exc)
+        write_figure(fig, output)
 
     if json_output:
         s = res.scan

@@ -8,7 +8,17 @@ from typing import Annotated, Optional
 
 import typer
 
-from loopcheck.cli_common import atomic_path, check_output, fail, json_line, load_case, print_warnings, warn
+from loopcheck.cli_common import (
+    check_figure_output,
+    atomic_path,
+    check_output,
+    fail,
+    json_line,
+    load_case,
+    print_warnings,
+    warn,
+    write_figure,
+)
 
 
 def _parse_compare(text: str) -> float:
@@ -137,9 +147,7 @@ def simulate(
     except CaseError as exc:
         fail(str(exc))
     Hi_cmp = _parse_compare(compare) if compare is not None else None
-    if output is not None and output.suffix.lower() not in (".png", ".svg", ".pdf"):
-        fail(f"{output}: the figure must end in .png, .svg or .pdf")
-    check_output(output, "-o")
+    check_figure_output(output)
     check_output(csv, "--csv")
     if csv is not None and Hi_cmp is not None:
         check_output(csv.with_name(csv.stem + ".compare" + (csv.suffix or ".csv")), "--csv")
@@ -190,14 +198,10 @@ def simulate(
             )
     files = []
     if output is not None:
-        from loopcheck.sim_plot import save_figure, waveform_figure
+        from loopcheck.sim_plot import waveform_figure
 
         fig = waveform_figure(w, w_c, rc, rc_c)
-        try:
-            with atomic_path(output) as tmp:
-                save_figure(fig, tmp)
-        except OSError as exc:
-            fail(f"{output}: cannot write the figure ({exc.strerror or exc})")
+        write_figure(fig, output)
         files.append(str(output))
     if csv is not None:
         targets = [(csv, w)]

@@ -300,17 +300,3 @@ def _secondary_axes(ax, smap, fx, fy) -> None:
         sec = ax.secondary_xaxis("top", functions=(lambda v, k=k: v * k, lambda v, k=k: v / k))
         sec.set_xlabel(f"resonance fr [kHz] at fs = {smap.fs_hz * 1e-3:.4g} kHz")
 
-
-def save_figure(fig: Figure, path: str) -> None:
-    """Save by the file suffix (.png, .svg or .pdf) with reproducible
-    metadata (no dates)."""
-    import matplotlib
-
-    suffix = path.rsplit(".", 1)[-1].lower()
-    meta = {
-        "png": {"Software": None},
-        "svg": {"Date": None},
-        "pdf": {"CreationDate": None, "ModDate": None, "Producer": None, "Creator": None},
-    }.get(suffix)
-    with matplotlib.rc_context({"svg.hashsalt": "loopcheck"}):
-        fig.savefig(path, dpi=150, bbox_inches="tight", metadata=meta, format=suffix)

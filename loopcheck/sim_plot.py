@@ -166,13 +166,3 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
     fig.suptitle(title, fontsize=10.5)
     return fig
 
-
-def save_figure(fig, path) -> None:
-    """Write ``fig`` to ``path`` (format from the suffix: .png, .svg, .pdf)
-    with the Agg canvas; PNG files carry no software/timestamp metadata."""
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    FigureCanvasAgg(fig)
-    fmt = str(path).rsplit(".", 1)[-1].lower()
-    meta = {"Software": None} if fmt == "png" else None
-    fig.savefig(path, dpi=110, metadata=meta)

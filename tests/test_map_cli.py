@@ -242,7 +242,7 @@ def test_bad_map_table(tmp_path, table, needle):
         (["--x", "Lg", "--x-range", "0 V/A", "3 mH"], '--x-range: expected an inductance in H (e.g. "1.8 mH"), got "0 V/A"'),
         (["--y", "Hi", "--x", "Hi"], "--y: x and y are both 'Hi'"),
         (["--metric", "margins"], "--metric: expected metric names"),
-        (["-o", "map.jpg"], "the figure format follows the suffix"),
+        (["-o", "map.jpg"], "the figure must end in .png, .svg or .pdf"),
     ],
 )
 def test_bad_options(case, args, needle):

@@ -1,0 +1,27 @@
+"""Writing a matplotlib figure to a file, the same way for every command."""
+
+from __future__ import annotations
+
+import os
+
+#: Figure formats the commands write, chosen by the file suffix.
+FIGURE_SUFFIXES = (".png", ".svg", ".pdf")
+
+_METADATA = {
+    "png": {"Software": None},
+    "svg": {"Date": None},
+    "pdf": {"CreationDate": None, "ModDate": None, "Producer": None, "Creator": None},
+}
+
+
+def save_figure(fig, path: str | os.PathLike, dpi: int = 130) -> None:
+    """Write ``fig`` to ``path`` in the format of its suffix (.png, .svg or
+    .pdf), with the Agg canvas and without dates or software names in the
+    file, so the same figure gives the same bytes."""
+    import matplotlib
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    fmt = os.fspath(path).rsplit(".", 1)[-1].lower()
+    with matplotlib.rc_context({"svg.hashsalt": "loopcheck"}):
+        fig.savefig(path, dpi=dpi, bbox_inches="tight", metadata=_METADATA.get(fmt), format=fmt)
