@@ -25,6 +25,24 @@ CAUTION = ("Model result only: verify on hardware at reduced voltage with protec
            "interconnection rules and a licensed engineer's sign-off take precedence.")
 
 
+# Options shared with `loopcheck pick` (declared once here).
+LgRangeOption = Annotated[
+    Optional[tuple[str, str]],
+    typer.Option("--lg-range", help='Grid-inductance range FROM TO, e.g. --lg-range "0 mH" "6 mH" (overrides the case).',
+                 show_default=False, metavar="FROM TO"),
+]
+PhaseMarginOption = Annotated[
+    Optional[float], typer.Option("--phase-margin", help="Phase-margin target [deg] (overrides [targets]; default 30).", show_default=False)
+]
+GainMarginOption = Annotated[
+    Optional[float], typer.Option("--gain-margin", help="Gain-margin target on both sides [dB] (overrides [targets]; default 3).", show_default=False)
+]
+SensitivityPeakOption = Annotated[
+    Optional[float], typer.Option("--sensitivity-peak", help="Sensitivity-peak limit [dB] (overrides [targets]; default none).", show_default=False)
+]
+QuietOption = Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar on stderr.")]
+
+
 def lg_range_or_fail(case, lg_range: Optional[tuple[str, str]]) -> tuple[float, float]:
     """The Lg range [H] from ``--lg-range`` or the case; exits 2 when neither gives one."""
     from loopcheck.units import UnitError, parse_quantity
@@ -250,11 +268,7 @@ def grid(
     vs_scr: Annotated[
         bool, typer.Option("--vs-scr", help="Draw the figure against the short-circuit ratio (needs S and V in [grid]).")
     ] = False,
-    lg_range: Annotated[
-        Optional[tuple[str, str]],
-        typer.Option("--lg-range", help='Grid-inductance range FROM TO, e.g. --lg-range "0 mH" "6 mH" (overrides the case).',
-                     show_default=False, metavar="FROM TO"),
-    ] = None,
+    lg_range: LgRangeOption = None,
     points: Annotated[int, typer.Option("--points", min=2, max=401, help="Rows of the Lg table.")] = 11,
     monte_carlo: Annotated[
         int, typer.Option("--monte-carlo", min=0, max=1_000_000, help="Draw this many units from the tolerances and Lg range (0: off).")
@@ -263,20 +277,14 @@ def grid(
     confidence: Annotated[
         float, typer.Option("--confidence", min=0.5, max=0.9999, help="Confidence level of the Monte Carlo intervals.")
     ] = 0.95,
-    phase_margin: Annotated[
-        Optional[float], typer.Option("--phase-margin", help="Phase-margin target [deg] (overrides [targets]; default 30).", show_default=False)
-    ] = None,
-    gain_margin: Annotated[
-        Optional[float], typer.Option("--gain-margin", help="Gain-margin target on both sides [dB] (overrides [targets]; default 3).", show_default=False)
-    ] = None,
-    sensitivity_peak: Annotated[
-        Optional[float], typer.Option("--sensitivity-peak", help="Sensitivity-peak limit [dB] (overrides [targets]; default none).", show_default=False)
-    ] = None,
+    phase_margin: PhaseMarginOption = None,
+    gain_margin: GainMarginOption = None,
+    sensitivity_peak: SensitivityPeakOption = None,
     nominal_only: Annotated[bool, typer.Option("--nominal-only", help="Ignore the [tolerance] table (no corners, no Monte Carlo spread).")] = False,
     fail_on_unstable: Annotated[
         bool, typer.Option("--fail-on-unstable", help="Exit with code 4 when the nominal filter or a corner is unstable somewhere in the range.")
     ] = False,
-    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar on stderr.")] = False,
+    quiet: QuietOption = False,
 ) -> None:
     """Sweep the grid inductance over its range ([grid] Lg_range or
     scr_range): per Lg the resonance, verdict, phase margin, gain-margin

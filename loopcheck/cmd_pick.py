@@ -19,7 +19,18 @@ from loopcheck.cli_common import (
     progress,
     write_figure,
 )
-from loopcheck.cmd_grid import CAUTION, FractionBar, lg_range_or_fail, read_spec_and_targets, worst_dict
+from loopcheck.cmd_grid import (
+    CAUTION,
+    FractionBar,
+    GainMarginOption,
+    LgRangeOption,
+    PhaseMarginOption,
+    QuietOption,
+    SensitivityPeakOption,
+    lg_range_or_fail,
+    read_spec_and_targets,
+    worst_dict,
+)
 
 
 def _gain_range(option: str, values: Optional[tuple[str, str]], positive: bool = False):
@@ -130,25 +141,15 @@ def pick(
     ] = None,
     points: Annotated[int, typer.Option("--points", min=5, max=1001, help="Hi grid values before refinement.")] = 61,
     lg_points: Annotated[int, typer.Option("--lg-points", min=2, max=401, help="Lg samples over the range.")] = 21,
-    lg_range: Annotated[
-        Optional[tuple[str, str]],
-        typer.Option("--lg-range", help='Grid-inductance range FROM TO, e.g. --lg-range "0 mH" "6 mH" (overrides the case).',
-                     show_default=False, metavar="FROM TO"),
-    ] = None,
-    phase_margin: Annotated[
-        Optional[float], typer.Option("--phase-margin", help="Phase-margin target [deg] (overrides [targets]; default 30).", show_default=False)
-    ] = None,
-    gain_margin: Annotated[
-        Optional[float], typer.Option("--gain-margin", help="Gain-margin target on both sides [dB] (overrides [targets]; default 3).", show_default=False)
-    ] = None,
-    sensitivity_peak: Annotated[
-        Optional[float], typer.Option("--sensitivity-peak", help="Sensitivity-peak limit [dB] (overrides [targets]; default none).", show_default=False)
-    ] = None,
+    lg_range: LgRangeOption = None,
+    phase_margin: PhaseMarginOption = None,
+    gain_margin: GainMarginOption = None,
+    sensitivity_peak: SensitivityPeakOption = None,
     nominal_only: Annotated[bool, typer.Option("--nominal-only", help="Ignore the [tolerance] table (nominal filter only).")] = False,
     fail_if_none: Annotated[
         bool, typer.Option("--fail-if-none", help="Exit with code 4 when no gain meets the targets.")
     ] = False,
-    quiet: Annotated[bool, typer.Option("--quiet", "-q", help="No progress bar on stderr.")] = False,
+    quiet: QuietOption = False,
 ) -> None:
     """Pick the capacitor-current damping gain Hi (with --also-kp also Kp)
     that maximises the worst-case robustness over the grid-inductance range
