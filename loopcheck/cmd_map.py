@@ -174,7 +174,8 @@ def json_record(smap, case_path: str, figure, csv_path) -> dict:
             "x": smap.design_x,
             "y": smap.design_y,
             "stable": smap.design_stable,
-            "stable_y_interval": list(smap.design_interval) if smap.design_interval else None,
+            "stable_y_interval": _interval_json(smap.design_interval),
+            "line": smap.design_line.to_dict() if smap.design_line is not None else None,
         },
         "columns": [
             {"x": float(x), "stable_y_intervals": [list(iv) for iv in ivs], "boundaries": list(b), "method": m}
@@ -196,6 +197,12 @@ def _q(value: float, name: str) -> str:
     return format_quantity(value, unit, prefix=unit not in ("V/A", "V/A/s"))
 
 
+def _interval_json(iv):
+    if iv is None:
+        return None
+    return [float(v) if v == v and abs(v) != float("inf") else None for v in iv]
+
+
 def summary_text(smap, case_path: str, figure, csv_path) -> str:
     """Readable summary for the terminal."""
     xn, yn = smap.x.name, smap.y.name
@@ -207,20 +214,9 @@ def summary_text(smap, case_path: str, figure, csv_path) -> str:
         f"{', log' if smap.y.log else ''})",
         f"  stable share of the map: {100 * smap.stable_fraction:.1f} %",
     ]
-    verdict = "stable" if smap.design_stable else "NOT stable"
-    lines.append(f"  design point: {xn} = {_q(smap.design_x, xn)}, {yn} = {_q(smap.design_y, yn)}: {verdict}")
-    if smap.design_interval is not None:
-        a, b = smap.design_interval
-        edge_lo = "range end" if a <= min(smap.y.start, smap.design_y) else "boundary"
-        edge_hi = "range end" if b >= max(smap.y.stop, smap.design_y) else "boundary"
-        # distances only to real stability boundaries, not to the ends of the map
-        room = []
-        if edge_lo == "boundary":
-            room.append(f"{_q(smap.design_y - a, yn)} above the lower boundary")
-        if edge_hi == "boundary":
-            room.append(f"{_q(b - smap.design_y, yn)} below the upper boundary")
-        room_text = "the design is " + " and ".join(room) if room else "no stability boundary in this column of the map"
-        lines.append(f"  stable {yn} at this {xn}: {_q(a, yn)} ({edge_lo}) .. {_q(b, yn)} ({edge_hi}); {room_text}")
+    from loopcheck.map_summary import design_point_lines
+
+    lines.extend(design_point_lines(smap))
     crit = smap.critical_ratio
     period = "sampling period" if smap.delay == 1 else "sampling periods"
     lines.append(f"  critical ratio fr/fs = 1/(4 delay + 2) = {crit:.4g} (delay {smap.delay:g} {period})")

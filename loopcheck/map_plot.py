@@ -97,12 +97,16 @@ def _add_overlays(ax, smap, fx, fy, legend: list) -> None:
     )
     verdict = "stable" if smap.design_stable else "NOT stable"
     label = f"design point ({verdict})" + ("" if inside else ", outside this map")
+    # a stable design point is an orange star, one that is not stable a white
+    # cross: shape and fill differ, so the two read apart without colour
+    style = (dict(marker="*", ms=17, mfc=ORANGE, mec="black", mew=1.2) if smap.design_stable
+             else dict(marker="X", ms=14, mfc="white", mec="black", mew=1.6))
     if inside:
         ax.plot(
-            smap.design_x * fx, smap.design_y * fy, marker="*", ms=17, mfc=ORANGE, mec="black", mew=1.2, ls="none",
+            smap.design_x * fx, smap.design_y * fy, ls="none", **style,
             clip_on=False, zorder=6,  # a design point on the edge of the map (often Hi = 0) stays whole
         )
-    legend.append(Line2D([], [], marker="*", ms=13, mfc=ORANGE, mec="black", mew=1.2, ls="none", label=label))
+    legend.append(Line2D([], [], ls="none", **{**style, "ms": style["ms"] - 4}, label=label))
 
 
 def _boundary_points(smap, fx, fy):

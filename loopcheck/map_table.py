@@ -84,18 +84,46 @@ def _nice_up(x: float) -> float:
     return 10.0 ** (e + 1)
 
 
-def default_range(design, name: str) -> tuple[float, float]:
+def _negative_hi_wanted(design, other) -> bool:
+    """True when the map should show negative Hi: the design's Hi is
+    negative, or a resonance above the critical frequency fs/(4*delay + 2)
+    is on the map (at the design's own fs: the lowest grid inductance of the
+    case's range, or an fr/fs axis reaching past the critical ratio). Above
+    the critical frequency capacitor-current feedback damps with the
+    opposite sign (common practice; e.g. Parker, McGrath, Holmes, "Regions
+    of active damping control for LCL filters", IEEE Trans. Ind. Appl.
+    50(1), 2014, from memory)."""
+    from loopcheck.model import resonance_hz
+
+    f, g, s, c = design.filter, design.grid, design.sampling, design.control
+    if c.Hi_V_per_A < 0:
+        return True
+    crit = s.critical_hz
+    lg_low = min(g.Lg_H, g.Lg_range_H[0]) if g.Lg_range_H is not None else g.Lg_H
+    if float(resonance_hz(f.L1_H, f.C_F, f.L2_H + lg_low)) > crit:
+        return True
+    return other is not None and other.name == "fr/fs" and other.stop > 1.0 / (4.0 * s.delay + 2.0)
+
+
+def default_range(design, name: str, other=None) -> tuple[float, float]:
     """Default range of an axis around the design's own value [SI].
 
+    ``other``: the map's other axis when already known (a
+    :class:`loopcheck.maps.Axis`), which decides whether Hi goes negative.
     fr/fs: 0.02..0.45; Hi: 0 up to normalised gain Hi*Ts/L1 = 1.2 (or 1.5
-    times the design's Hi if larger); Kp, Kr, Ki: 0 to 3 times the design
+    times the design's Hi if larger), and down to minus half of that (or
+    1.5 times a negative design Hi) when a resonance above the critical
+    frequency is on the map (:func:`_negative_hi_wanted`); Kp, Kr, Ki: 0 to 3 times the design
     value; fs: half to twice; Lg: the case's Lg_range, else 0 to
     max(3 Lg, L1 + L2); C, L1, L2: a quarter to four times."""
     f, g, s, c = design.filter, design.grid, design.sampling, design.control
     if name == "fr/fs":
         return 0.02, 0.45
     if name == "Hi":
-        return 0.0, _nice_up(max(1.2 * f.L1_H * s.fs_hz, 1.5 * abs(c.Hi_V_per_A)))
+        top = _nice_up(max(1.2 * f.L1_H * s.fs_hz, 1.5 * max(c.Hi_V_per_A, 0.0)))
+        if not _negative_hi_wanted(design, other):
+            return 0.0, top
+        return -_nice_up(max(0.5 * top, -1.5 * c.Hi_V_per_A)), top
     if name in ("Kp", "Kr", "Ki"):
         v = {"Kp": c.Kp_V_per_A, "Kr": c.Kr, "Ki": c.Ki_V_per_As}[name]
         return 0.0, _nice_up(3.0 * v) if v > 0 else 1.0
@@ -231,7 +259,7 @@ def map_spec(case, overrides: Overrides | None = None):
         if raw_r is not None and not (changed_by_option and getattr(ov, key) is None):
             lo, hi = _read_range(raw_r, label_r, name, design)
         else:
-            lo, hi = default_range(design, name)
+            lo, hi = default_range(design, name, axes.get("x"))
         raw_p, label_p = source(f"{ax}_points")
         points = DEFAULT_POINTS[ax] if raw_p is None else _read_points(raw_p, label_p)
         raw_s, label_s = source(f"{ax}_scale")

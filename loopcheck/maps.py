@@ -197,7 +197,10 @@ class StabilityMap:
     metrics (None when not requested; NaN where undefined, e.g. not stable).
     design_x, design_y: the case's own values on the axes [axis units];
     design_stable: its verdict; design_interval: the stable y interval at
-    x = design_x that contains design_y, or None.
+    x = design_x that contains design_y over the whole gain line (not the
+    drawn range; ends may be infinite), or None; design_line: the
+    :class:`loopcheck.design_line.DesignLine` with every stable interval
+    of that line and, for a design that is not stable, the nearest ones.
     critical_ratio: 1/(4*delay + 2), the critical fr/fs [-]; delay
     [sampling periods]; fs_hz, L1_H: the case's own sampling frequency [Hz]
     and converter-side inductance [H]; Lg_H: nominal grid inductance [H]; Lg_range_H:
@@ -232,6 +235,7 @@ class StabilityMap:
     gain_margin_upper: np.ndarray | None = None
     sensitivity_peak: np.ndarray | None = None
     sensitivity_peak_hz: np.ndarray | None = None
+    design_line: object | None = None
 
     @property
     def stable_fraction(self) -> float:
@@ -908,32 +912,6 @@ def _column_lines(design: Design, spec: MapSpec, xv, yv, tol, progress):
     return lines, stable, radius
 
 
-def _design_interval(design: Design, spec: MapSpec, x0: float, y0: float, tol: float):
-    """Verdict at the design point and the stable y interval through it at
-    x = x0 (over the y range widened to include y0)."""
-    xname, yname = spec.x.name, spec.y.name
-    A = closed_loop_matrices(design, {xname: np.array([x0]), yname: np.array([y0])})
-    stable = bool(_radius(A)[0] < 1.0 - tol)
-    lo = min(spec.y.start, y0)
-    hi = max(spec.y.stop, y0)
-    if spec.y.is_gain:
-        A0, A1 = _line_matrices(design, {xname: np.array([x0])}, yname, _y_ref(np.array([lo, hi])))
-        p0, p1 = char_polys(A0, A1)
-        line = _exact_lines(A0, A1, p0, p1, lo, hi, tol)[0][0]
-    else:
-        yy = np.geomspace(lo, hi, 2 * spec.y.points) if spec.y.log else np.linspace(lo, hi, 2 * spec.y.points)
-        A = closed_loop_matrices(design, {xname: np.full(yy.size, x0), yname: yy})
-        st = (_radius(A) < 1.0 - tol)[:, None]
-        ev = _physical_evaluator(design, xname, np.array([x0]), yname, tol)
-        line = _refined_lines(ev, st, yy, hi - lo)[0]
-    if not stable:
-        return stable, None
-    for a, b in line.intervals(lo, hi):
-        if a <= y0 <= b:
-            return stable, (a, b)
-    return stable, None
-
-
 def _varying_parameters(design: Design, spec: MapSpec, xv, yv) -> dict:
     X, Y = np.broadcast_arrays(xv[None, :], yv[:, None])
     prm = point_parameters(design, {spec.x.name: xv[None, :], spec.y.name: yv[:, None]})
@@ -966,7 +944,13 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
     lines, stable, radius = _column_lines(design, spec, xv, yv, tol, prog)
     x0 = design_value(design, spec.x.name)
     y0 = design_value(design, spec.y.name)
-    d_stable, d_interval = _design_interval(design, spec, x0, y0, tol)
+    from .design_line import design_line
+
+    d_line = design_line(design, spec, tol)
+    d_stable = d_line.stable
+    d_interval = None
+    if d_stable and d_line.containing is not None:
+        d_interval = (d_line.containing.low, d_line.containing.high)
     s = design.sampling
     metrics = {}
     if spec.metrics:
@@ -989,6 +973,7 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
         design_y=float(y0),
         design_stable=d_stable,
         design_interval=d_interval,
+        design_line=d_line,
         critical_ratio=1.0 / (4.0 * s.delay + 2.0),
         delay=s.delay,
         fs_hz=s.fs_hz,

@@ -483,12 +483,13 @@ def build_map(ctx: ReportContext) -> Section:
         "point is marked.",
         "fig-map",
     )
+    from loopcheck.map_summary import design_point_lines
+
+    first, *rest = [ln.strip() for ln in design_point_lines(smap)]
+    head = first.rsplit(": ", 1)[0]
     verdict = "stable" if smap.design_stable else "not stable"
-    iv = smap.design_interval
-    line = (f"<p>At the design's own {e(spec.x.name)} the design point is <strong>{verdict}</strong>")
-    if iv is not None:
-        line += f"; the stable {e(spec.y.name)} interval around it runs from {_num(iv[0], 5)} to {_num(iv[1], 5)}"
-    line += f" (SI units of the axis). Share of the map that is stable: {100.0 * float(smap.stable.mean()):.1f} %.</p>"
+    text = f"{e(head[0].upper() + head[1:])}: <strong>{verdict}</strong>" + "".join(f"; {e(r)}" for r in rest)
+    line = (f"<p>{text}. Share of the map that is stable: {100.0 * float(smap.stable.mean()):.1f} %.</p>")
     return Section("map", title, body + line)
 
 
