@@ -275,3 +275,15 @@ def progress(total: float, description: str, quiet: bool = False) -> Iterator[Ca
     ) as bar:
         task = bar.add_task(description, total=total)
         yield lambda n=1: bar.advance(task, n)
+
+
+def case_tolerance(case):
+    """The case's ``[tolerance]`` table as a ToleranceSpec (empty when
+    absent); a bad table prints one line and exits 2."""
+    from loopcheck.casefile import CaseError
+    from loopcheck.tolerance import parse_tolerance_table
+
+    try:
+        return parse_tolerance_table((case.tables or {}).get("tolerance"), case.where("tolerance"), case.design)
+    except CaseError as exc:
+        fail(str(exc))

@@ -7,7 +7,7 @@ from typing import Annotated
 
 import typer
 
-from loopcheck.cli_common import EXIT_UNSTABLE, json_line, load_cases, print_warnings
+from loopcheck.cli_common import EXIT_UNSTABLE, case_tolerance, json_line, load_cases, print_warnings
 
 
 CAUTION = (
@@ -28,35 +28,44 @@ def check(
     ] = False,
     fail_on_unstable: Annotated[
         bool,
-        typer.Option("--fail-on-unstable", help="Exit with code 4 when any case is not stable (marginal counts as not stable)."),
+        typer.Option("--fail-on-unstable", help="Exit with code 4 when any case is not stable at its nominal point, "
+                     "over its declared Lg range or at a tolerance corner (marginal counts as not stable)."),
     ] = False,
 ) -> None:
     """Verdict and margins of each case: resonance and critical frequency,
     closed-loop eigenvalue verdict, crossovers and phase margins, gain-margin
     interval, -180 deg crossings, sensitivity peak and the Nyquist check.
 
+    The headline states the verdict at the nominal point and, where the case
+    declares an Lg (or SCR) range or tolerances, over all of them.
+
     Exit codes: 0 the analysis ran; 2 bad input; 4 with --fail-on-unstable
-    when a case is not stable.
+    when a case is not stable at its nominal point, over its range or at a
+    tolerance corner.
     """
     loaded = load_cases(cases)  # every file is checked before any output
 
     from loopcheck.analysis import analyse
+    from loopcheck.range_verdict import headline, range_verdict
     from loopcheck.summary import format_summary
 
+    specs = [case_tolerance(case) for case in loaded]  # bad [tolerance] tables fail before any output
     any_unstable = False
-    for i, case in enumerate(loaded):
+    for i, (case, spec) in enumerate(zip(loaded, specs)):
         print_warnings(case)
         result = analyse(case.design)
-        any_unstable |= not result.stable
+        rv = range_verdict(case.design, spec)
+        any_unstable |= not result.stable or not rv.stable_everywhere
         if json_output:
-            record = {"name": case.design.name, "case": case.path}
+            record = {"name": case.design.name, "case": case.path, "headline": headline(rv)}
             record.update({k: v for k, v in result.to_dict().items() if k != "name"})
+            record["range_verdict"] = rv.to_dict()
             record["warnings"] = list(case.warnings)
             typer.echo(json_line(record))
         else:
             if i:
                 typer.echo("")
-            typer.echo(format_summary(case, result))
+            typer.echo(format_summary(case, result, rv))
     if not json_output and loaded:
         typer.echo("")
         typer.echo(CAUTION)

@@ -11,6 +11,7 @@ import typer
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
     atomic_write_text,
+    case_tolerance,
     check_output,
     fail,
     json_line,
@@ -40,6 +41,14 @@ def export(
             help="Exit with code 4 when the loop with the stored (quantised) coefficients is not stable.",
         ),
     ] = False,
+    range_error: Annotated[
+        bool,
+        typer.Option(
+            "--range-error",
+            help="Put an #error in the C header when the design is not stable over the case's declared Lg range or "
+                 "tolerance corners (PREFIX_ALLOW_RANGE_UNSTABLE overrides it).",
+        ),
+    ] = False,
 ) -> None:
     """The discrete current controller as difference equations (direct form I
     sections, integrator, damping gain) in the case's sampling period, in
@@ -47,6 +56,10 @@ def export(
     coefficients; stability and margins re-checked with the stored
     coefficients. Output: a summary (or --json) on stdout, and with -o or
     --header/--json-out a C99 header of constants and a JSON file.
+
+    Where the case declares an Lg (or SCR) range or tolerances, the summary,
+    the JSON and the header state the verdict over all of it, and the header
+    warns when it fails (with --range-error it also stops the build).
 
     Exit codes: 0 done; 2 bad input; 4 with --fail-on-unstable when the
     stored coefficients give a loop that is not stable.
@@ -79,6 +92,9 @@ def export(
     except FirmwareFormatError as exc:
         fail(f"{where} {exc.key}: {exc}")
 
+    from loopcheck.range_verdict import range_verdict
+
+    rv = range_verdict(loaded.design, case_tolerance(loaded))
     if out_dir is not None:
         stem = Path(loaded.path).stem
         header = out_dir / f"{stem}_controller.h"
@@ -91,10 +107,11 @@ def export(
     if json_out is not None:
         files["JSON"] = os.fspath(json_out)
     doc = export_json(ex, loaded.path, files)
+    doc["range_verdict"] = rv.to_dict()
     option = "-o" if out_dir is not None else None
     if header is not None:
         try:
-            atomic_write_text(header, render_header(ex, loaded.path))
+            atomic_write_text(header, render_header(ex, loaded.path, rv, range_error))
         except OSError as exc:
             write_failure(option or "--header", header, exc)
     if json_out is not None:
@@ -107,7 +124,7 @@ def export(
     if json_output:
         typer.echo(json_line(doc))
     else:
-        typer.echo(render_summary(ex, loaded.path, files))
+        typer.echo(render_summary(ex, loaded.path, files, rv))
     final = ex.recheck.after if ex.recheck.after is not None else ex.recheck.before
     if json_output:  # the summary already lists them
         for w in ex.recheck.warnings:

@@ -77,6 +77,7 @@ def report(
             "report": str(out),
             "case": loaded.path,
             "verdict": result.verdict,
+            "headline": result.headline,
             "sections": [s.id for s in result.sections],
             "not_available": missing,
             "problems": list(result.problems),
@@ -85,4 +86,4 @@ def report(
         }))
     else:
         extra = f"; not available in this version: {', '.join(missing)}" if missing else ""
-        typer.echo(f"wrote {out} ({result.verdict}, {len(result.sections)} sections{extra})")
+        typer.echo(f"wrote {out} ({result.headline}; {len(result.sections)} sections{extra})")

@@ -99,8 +99,24 @@ def _delay_text(delay: float) -> str:
     return f"{delay:g} sampling period" + ("" if delay == 1 else "s")
 
 
-def render_header(ex, case_path: str) -> str:
-    """The C99 header text for the export ``ex`` (a FirmwareExport)."""
+def _range_lines(rv) -> list[str]:
+    """Comment lines on the verdict over the case's declared Lg range and
+    tolerance corners (empty when the case declares none)."""
+    if rv is None or not rv.declared:
+        return []
+    from loopcheck.range_verdict import headline
+
+    return ["", "RANGE declared by the case (Lg range / tolerance corners, exact coefficients):",
+            f"  {headline(rv)}"]
+
+
+def render_header(ex, case_path: str, range_verdict=None, range_error: bool = False) -> str:
+    """The C99 header text for the export ``ex`` (a FirmwareExport).
+
+    ``range_verdict``: a :class:`loopcheck.range_verdict.RangeVerdict`,
+    stated in the comment (and as a warning when the design is not stable
+    over all of it); ``range_error``: also emit an ``#error`` in that case,
+    unless ``<PREFIX>ALLOW_RANGE_UNSTABLE`` is defined."""
     P = ex.settings.c_prefix
     fmt = ex.quantised.number_format
     sc = ex.settings.scaling
@@ -149,8 +165,14 @@ def render_header(ex, case_path: str) -> str:
         "RE-CHECK of the sampled loop with the stored coefficients (closed-loop eigenvalues):",
     ]
     head += _recheck_lines(rc)
-    if rc.warnings:
-        head += ["", "WARNINGS"] + [f"  - {w}" for w in rc.warnings]
+    head += _range_lines(range_verdict)
+    range_bad = range_verdict is not None and range_verdict.declared and not range_verdict.stable_everywhere
+    warnings = list(rc.warnings)
+    if range_bad:
+        warnings.append("the design is NOT stable over everything the case declares (see RANGE above); "
+                        "these constants must not run where that part of the range can occur")
+    if warnings:
+        head += ["", "WARNINGS"] + [f"  - {w}" for w in warnings]
     lines += _comment_block(head)
     guard = f"{P}CONTROLLER_H"
     lines += [f"#ifndef {guard}", f"#define {guard}", ""]
@@ -163,6 +185,17 @@ def render_header(ex, case_path: str) -> str:
             f'#error "loopcheck: the closed loop with these coefficients is {final.verdict.upper()} '
             f'(spectral radius {final.spectral_radius:.9f}); see the comment above. '
             f'Define {P}ALLOW_UNSTABLE only for analysis, never to run hardware."',
+            "#endif",
+            "",
+        ]
+    if range_bad and range_error:
+        from loopcheck.range_verdict import range_text
+
+        text = range_text(range_verdict).replace('"', "'")
+        lines += [
+            f"#ifndef {P}ALLOW_RANGE_UNSTABLE",
+            f'#error "loopcheck: {text}; see RANGE in the comment above. '
+            f'Define {P}ALLOW_RANGE_UNSTABLE only if that part of the range cannot occur."',
             "#endif",
             "",
         ]
@@ -463,7 +496,7 @@ def _nums(xs) -> str:
     return ", ".join(f"{x:.10g}" for x in xs)
 
 
-def render_summary(ex, case_path: str, files: dict | None = None) -> str:
+def render_summary(ex, case_path: str, files: dict | None = None, range_verdict=None) -> str:
     """Plain ASCII summary of the export (what the command prints)."""
     fmt = ex.quantised.number_format
     sc = ex.settings.scaling
@@ -499,6 +532,10 @@ def render_summary(ex, case_path: str, files: dict | None = None) -> str:
     L.append("  re-check")
     for line in _recheck_lines(rc):
         L.append("  " + line)
+    if range_verdict is not None and range_verdict.declared:
+        from loopcheck.range_verdict import headline
+
+        L.append(f"  range        {headline(range_verdict)}")
     if rc.warnings:
         L.append("  warnings")
         for w in rc.warnings:

@@ -124,8 +124,9 @@ class Report:
     html: str
     sections: tuple[Section, ...]
     problems: tuple[str, ...]
-    elapsed_s: float
+    elapsed_s: float  # [s]; verdict: at the nominal point; headline: with the declared range
     verdict: str
+    headline: str = ""
 
 
 # ---------------------------------------------------------------------------
@@ -326,16 +327,42 @@ _BANNER = {
 }
 
 
-def verdict_banner(analysis) -> str:
-    """The verdict banner: the verdict in words and a glyph, not colour alone."""
-    word, glyph, meaning = _BANNER.get(analysis.verdict, (analysis.verdict.upper(), "[?]", ""))
+def verdict_banner(analysis, range_verdict=None) -> str:
+    """The verdict banner: the verdict in words and a glyph, not colour alone.
+
+    ``range_verdict`` (a :class:`loopcheck.range_verdict.RangeVerdict`):
+    where the case declares an Lg range or tolerances, the banner states
+    the result over them, and a design stable only at its nominal point gets
+    the not-stable banner."""
+    state = analysis.verdict
+    word, glyph, meaning = _BANNER.get(state, (state.upper(), "[?]", ""))
+    at = ""
+    rest = ""
+    if range_verdict is not None and range_verdict.declared:
+        from loopcheck.range_verdict import range_text
+
+        at = " at the nominal Lg"
+        rest = f" Over the case's declared range: {range_text(range_verdict)}."
+        if state == "stable" and not range_verdict.stable_everywhere:
+            state, word, glyph = "unstable", "NOT STABLE OVER ITS RANGE", "[XX]"
+            meaning = "Stable at the nominal point only."
     return (
-        f"<div class='banner banner-{e(analysis.verdict)}' role='status'>"
+        f"<div class='banner banner-{e(state)}' role='status'>"
         f"<span class='glyph' aria-hidden='true'>{e(glyph)}</span>"
         f"<span class='word'>{e(word)}</span>"
-        f"<span class='why'>{e(meaning)} Spectral radius {analysis.spectral_radius:.6f} "
-        f"(tolerance {analysis.tolerance:.0e}), from the closed-loop eigenvalues.</span></div>"
+        f"<span class='why'>{e(meaning)} Spectral radius {analysis.spectral_radius:.6f}{at} "
+        f"(tolerance {analysis.tolerance:.0e}), from the closed-loop eigenvalues.{e(rest)}</span></div>"
     )
+
+
+def report_range_verdict(ctx: "ReportContext"):
+    """The :class:`loopcheck.range_verdict.RangeVerdict` of the report's case (computed once)."""
+    if "range_verdict" not in ctx.shared:
+        from loopcheck.range_verdict import range_verdict
+
+        _, spec, _ = _grid_inputs(ctx)
+        ctx.shared["range_verdict"] = range_verdict(ctx.design, spec)
+    return ctx.shared["range_verdict"]
 
 
 def build_verdict(ctx: ReportContext) -> Section:
@@ -370,7 +397,7 @@ def build_verdict(ctx: ReportContext) -> Section:
     rows.append(["stable intervals of the controller-gain factor k", e(ivs or "none"), "-"])
     rows.append(["sensitivity peak Ms = max|1/(1+L)|", _num(a.sensitivity_peak.value), "-"])
     rows.append(["frequency of the sensitivity peak", _num(a.sensitivity_peak.frequency_hz, 5), "Hz"])
-    body = verdict_banner(a)
+    body = verdict_banner(a, report_range_verdict(ctx))
     body += _table(["Quantity", "Value", "Unit"], [[e(r[0]), r[1], r[2]] for r in rows],
                    caption="Key numbers (loop broken at the current controller, damping loop closed)")
     co_rows = [
@@ -992,7 +1019,10 @@ def build_report(case, options: ReportOptions | None = None, progress: Callable[
             problems.append(msg)
             sections.append(Section(sid, sid, f"<p class='na'><strong>Not computed.</strong> {e(msg)}</p>", False))
     html_text = render_html(ctx, sections)
-    return Report(html_text, tuple(sections), tuple(problems), time.perf_counter() - t0, analysis.verdict)
+    from loopcheck.range_verdict import headline
+
+    return Report(html_text, tuple(sections), tuple(problems), time.perf_counter() - t0, analysis.verdict,
+                  headline(report_range_verdict(ctx)))
 
 
 _CSS = """
@@ -1091,7 +1121,7 @@ def render_html(ctx: ReportContext, sections: list[Section]) -> str:
         f"<title>{e(title)}</title>\n<style>{_CSS}</style>\n</head>\n<body>\n<main>\n"
         f"<header class='top'><div class='kicker'>loopcheck design report</div><h1>{e(title)}</h1>"
         f"<div class='meta'>{' &middot; '.join(meta)}</div></header>\n"
-        f"{verdict_banner(a)}\n{caution}\n"
+        f"{verdict_banner(a, report_range_verdict(ctx))}\n{caution}\n"
         f"<nav class='toc' aria-label='Contents'><ol>{toc}</ol></nav>\n"
         + "\n".join(body)
         + "\n<footer>Numbers are in SI units unless a unit says otherwise. Verdicts come from the closed-loop "

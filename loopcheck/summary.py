@@ -104,13 +104,21 @@ def describe_design(design) -> list[str]:
     return lines
 
 
-def format_summary(case, analysis) -> str:
-    """The ``check`` summary of one case as text (no trailing newline)."""
+def format_summary(case, analysis, range_verdict=None) -> str:
+    """The ``check`` summary of one case as text (no trailing newline).
+
+    ``range_verdict``: a :class:`loopcheck.range_verdict.RangeVerdict`; when
+    the case declares an Lg range or tolerances, the headline under the
+    title states the result over them beside the nominal verdict."""
     a = analysis
     design = case.design
     fs = design.sampling.fs_hz
     delay = design.sampling.delay
     out = [f"{design.name}  ({case.path})"]
+    if range_verdict is not None and range_verdict.declared:
+        from loopcheck.range_verdict import headline
+
+        out.append(f"  VERDICT: {headline(range_verdict)}")
     if case.description:
         out.append(f"  {case.description}")
     out += _block("design", describe_design(design))
@@ -135,7 +143,13 @@ def format_summary(case, analysis) -> str:
         "unstable": f"UNSTABLE: spectral radius {a.spectral_radius:.6f} > 1 "
         f"({a.closed_loop_unstable_poles} closed-loop poles outside the unit circle)",
     }.get(a.verdict, f"{a.verdict.upper()}: spectral radius {a.spectral_radius:.6f}")
-    out += _block("verdict", [verdict_line + "; from the closed-loop eigenvalues"])
+    verdict_lines = [verdict_line + "; from the closed-loop eigenvalues"]
+    if range_verdict is not None and range_verdict.declared:
+        from loopcheck.range_verdict import range_text
+
+        verdict_lines[0] += " at the nominal Lg"
+        verdict_lines.append("over the case's declared range: " + range_text(range_verdict))
+    out += _block("verdict", verdict_lines)
 
     out += _block(
         "open loop",
