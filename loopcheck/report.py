@@ -752,12 +752,13 @@ def build_waveforms(ctx: ReportContext) -> Section:
     case, d = ctx.case, ctx.design
     tables = getattr(case, "tables", {}) or {}
     sc = parse_scenario(tables.get("scenario"), case.where("scenario"))
-    if sc.phases is None and _has_module("loopcheck.pwm_tables"):
+    pwm_sim = None
+    if _has_module("loopcheck.pwm_tables"):
         from loopcheck.pwm_tables import read_pwm
 
-        pwm, _ = read_pwm(case, required=False)
-        if pwm is not None:
-            sc = replace(sc, phases=pwm.phases)
+        pwm_sim, _ = read_pwm(case, required=False)
+        if sc.phases is None and pwm_sim is not None:
+            sc = replace(sc, phases=pwm_sim.phases)
     ctx.progress("simulation")
     w = simulate(d, sc)
     rc = resonance_rate_check(d, sc)
@@ -793,6 +794,15 @@ def build_waveforms(ctx: ReportContext) -> Section:
         "(negative rate: decays; positive: grows)",
     )
     notes = list(w.notes) + ([f"Hi = 0 run: {n}" for n in w0.notes] if w0 is not None else [])
+    if pwm_sim is not None:  # the same saturation note as `loopcheck simulate`
+        import numpy as np
+
+        from loopcheck.findings import saturation_note
+
+        for label, wave in (("", w), ("Hi = 0 run: ", w0)):
+            note = None if wave is None else saturation_note(float(np.max(np.abs(wave.vi_V))), pwm_sim)
+            if note:
+                notes.append(label + note)
     if notes:
         body += "<div class='warn'><ul>" + "".join(f"<li>{e(n)}</li>" for n in notes) + "</ul></div>"
     return Section("waveforms", title, body)
@@ -830,11 +840,18 @@ def build_harmonics(ctx: ReportContext) -> Section:
         "fig-harmonics",
     )
     w = check.worst
-    verdict = "within" if check.complies else "ABOVE"
+    from loopcheck.findings import unstable_loop_note
+
+    loop_note = unstable_loop_note(ctx.analysis)
+    if loop_note:  # the same warning as `loopcheck harmonics`; no "within the limits" for an unstable loop
+        body += f"<div class='warn'><p><strong>Warning:</strong> {e(loop_note)}.</p></div>"
+        verdict = "no verdict on the limits while the loop is not stable"
+    else:
+        verdict = "within the limits" if check.complies else "ABOVE the limits"
     body += (
         f"<p><strong>Worst sideband:</strong> {_num(w.frequency_hz, 6)} Hz (order {w.order:.1f}), "
         f"{_num(w.percent)} % of the rated current against a limit of {_num(w.limit_percent, 3)} % "
-        f"(margin {w.margin_db:+.1f} dB): {verdict} the limits. Modulation index {check.modulation_index:.3f}, "
+        f"(margin {w.margin_db:+.1f} dB): {verdict}. Modulation index {check.modulation_index:.3f}, "
         f"{e(pwm.scheme)}, {e(pwm.update)} update, fsw = {_num(pwm.fsw_hz, 6)} Hz, Vdc = {_num(pwm.Vdc_V)} V.</p>"
     )
     biggest = sorted(check.sidebands, key=lambda s: -s.percent)[:8]
