@@ -104,7 +104,7 @@ def describe_design(design) -> list[str]:
     return lines
 
 
-def format_summary(case, analysis, range_verdict=None) -> str:
+def format_summary(case, analysis, range_verdict=None, closed_loop=None) -> str:
     """The ``check`` summary of one case as text (no trailing newline).
 
     ``range_verdict``: a :class:`loopcheck.range_verdict.RangeVerdict`; when
@@ -150,6 +150,20 @@ def format_summary(case, analysis, range_verdict=None) -> str:
         verdict_lines[0] += " at the nominal Lg"
         verdict_lines.append("over the case's declared range: " + range_text(range_verdict))
     out += _block("verdict", verdict_lines)
+    if closed_loop is not None:
+        cl_lines = []
+        bw = closed_loop.bandwidth_hz
+        if bw is not None:
+            cl_lines.append(f"bandwidth {q(bw, 'Hz')} (|i/i_ref| = |L/(1+L)| falls to -3 dB)")
+        elif a.stable:
+            cl_lines.append("bandwidth: n/a (|L/(1+L)| does not cross -3 dB below fs/2)")
+        for p in closed_loop.poles:
+            osc = f"{q(p.damped_frequency_hz, 'Hz')}" if p.damped_frequency_hz > 0 else "real"
+            cl_lines.append(
+                f"pole |z| = {p.magnitude:.6f}: {osc}, damping ratio {p.damping_ratio:.3g}, "
+                f"rate {p.rate_per_s:.4g} 1/s" + (" (grows)" if p.rate_per_s > 0 else "")
+            )
+        out += _block("closed loop", cl_lines)
 
     out += _block(
         "open loop",
