@@ -132,7 +132,11 @@ class PickResult:
     whole range at the recommendation; message: one paragraph for people;
     scan: :class:`HiScan` at the chosen Kp; Hi_range_V_per_A,
     Kp_range_V_per_A: searched ranges [V/A]; Lg_range_H [H]; Lg_samples_H:
-    the Lg samples [H]; variants: labels of nominal + corners."""
+    the Lg samples [H]; variants: labels of nominal + corners;
+    zoomed: the scan is a finer second pass over part of the searched range,
+    and every coarse sample outside it was unstable somewhere (so the gains
+    beyond the scan's ends, within the searched range, are unstable
+    somewhere too, to the coarse grid's resolution)."""
 
     Hi_V_per_A: float | None
     Kp_V_per_A: float
@@ -151,6 +155,7 @@ class PickResult:
     Lg_range_H: tuple[float, float]
     Lg_samples_H: tuple[float, ...]
     variants: tuple[str, ...]
+    zoomed: bool = False
 
 
 def default_hi_range(design: Design, spec: ToleranceSpec | None = None) -> tuple[float, float]:
@@ -416,6 +421,7 @@ def pick_gain(design: Design, Lg_range_H: tuple[float, float] | None = None, spe
             w_row, m_row, idx_row = prob.worst(Hs, np.full(Hs.size, kp), progress=sub(0.0, 0.45))
         # second pass on a finer grid over the gains that were stable everywhere
         Hz = _zoom(Hs, np.all(m_row.stable, axis=1), n_hi)
+        zoomed = Hz is not None
         if Hz is not None:
             Hs = Hz
             w_row, m_row, idx_row = prob.worst(Hs, np.full(Hs.size, kp), progress=sub(0.65 if also_kp else 0.45, 0.75))
@@ -483,6 +489,7 @@ def pick_gain(design: Design, Lg_range_H: tuple[float, float] | None = None, spe
         Lg_range_H=(lo, hi),
         Lg_samples_H=tuple(float(x) for x in prob.Lg_grid),
         variants=tuple(names),
+        zoomed=zoomed,
     )
 
 

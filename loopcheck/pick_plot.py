@@ -39,6 +39,22 @@ def _runs(mask: np.ndarray):
     return out
 
 
+def unstable_bands(Hi_V_per_A: np.ndarray, all_stable: np.ndarray) -> list[tuple[float, float]]:
+    """Hi bands [V/A] to hatch as unstable: every run of unstable samples of
+    the scan (which may mix a coarse and a zoomed grid, so it is sorted
+    first), widened to halfway to the neighbouring stable samples and to the
+    ends of the scan."""
+    order = np.argsort(Hi_V_per_A, kind="stable")
+    H = np.asarray(Hi_V_per_A, float)[order]
+    bad = ~np.asarray(all_stable, bool)[order]
+    out = []
+    for i, j in _runs(bad):
+        a = H[0] if i == 0 else 0.5 * (H[i - 1] + H[i])
+        b = H[-1] if j == H.size - 1 else 0.5 * (H[j] + H[j + 1])
+        out.append((float(a), float(b)))
+    return out
+
+
 def pick_figure(result, *, design_Hi_V_per_A: float | None = None, title: str = ""):
     """Figure of :class:`loopcheck.pick.PickResult` ``result``;
     ``design_Hi_V_per_A`` [V/A] marks the case's own damping gain. Returns a
@@ -55,13 +71,20 @@ def pick_figure(result, *, design_Hi_V_per_A: float | None = None, title: str = 
     fig = Figure(figsize=(8.0, 8.0), constrained_layout=True)
     FigureCanvasAgg(fig)
     axs = fig.subplots(3, 1, sharex=True)
-    step = (H[-1] - H[0]) / max(H.size - 1, 1)
+    bands = unstable_bands(H, np.asarray(s.all_stable, bool))
+    # beyond a zoomed scan every coarse sample was unstable somewhere: hatch
+    # out to the axis ends (the case's Hi may lie there), within the searched range
+    far = (result.Hi_range_V_per_A if getattr(result, "zoomed", False) else (H.min(), H.max()))
+    view = [H.min(), H.max()] + ([design_Hi_V_per_A] if design_Hi_V_per_A is not None else [])
+    lo_end, hi_end = max(min(view), far[0]), min(max(view), far[1])
+    bands = [(lo_end if a <= H.min() and not s.all_stable[np.argmin(H)] else a,
+              hi_end if b >= H.max() and not s.all_stable[np.argmax(H)] else b) for a, b in bands]
+
     for ax in axs:
         for a, b in result.Hi_interval_V_per_A:
             ax.axvspan(a, b, color=c["green"], alpha=0.15, lw=0)
-        for i, j in _runs(~np.asarray(s.all_stable, bool)):
-            ax.axvspan(H[i] - step / 2, H[j] + step / 2, facecolor="none", edgecolor=c["vermillion"],
-                       hatch="//", alpha=0.35, lw=0)
+        for a, b in bands:
+            ax.axvspan(a, b, facecolor="none", edgecolor=c["vermillion"], hatch="//", alpha=0.35, lw=0)
         ax.grid(True, alpha=0.3)
         if result.Hi_V_per_A is not None:
             ax.axvline(result.Hi_V_per_A, color=c["blue"], lw=1.8)

@@ -134,3 +134,36 @@ def test_default_hi_range_scales_with_critical_frequency_and_l1():
     assert hi2 == pytest.approx(0.8 * hi)
     with pytest.raises(ValueError):
         pick_gain(d, RANGE, hi_range=(5.0, 5.0))
+
+
+def test_pick_figure_hatches_every_unstable_band_over_its_whole_width():
+    # issue 12: the band between the case's Hi = 0 and the zoomed scan was not
+    # hatched. Oracle for "unstable somewhere": the python-control closed loop
+    # of tests/reference_loop.py at a grid inductance inside the range.
+    import dataclasses
+    from pathlib import Path
+
+    from reference_loop import reference_loop, spectral_radius
+
+    from loopcheck.casefile import read_case
+    from loopcheck.pick_plot import pick_figure, unstable_bands
+
+    assert unstable_bands(np.array([3.0, 0.0, 1.0, 2.0]), np.array([True, False, False, True])) == [(0.0, 1.5)]
+    case = read_case(str(Path(__file__).resolve().parent.parent / "cases" / "bench-15kva-no-damping.toml"))
+    d = case.design
+    lg_bad = 0.9 * d.grid.Lg_range_H[1]
+    _, cl = reference_loop(dataclasses.replace(d, grid=dataclasses.replace(d.grid, Lg_H=lg_bad)))
+    assert spectral_radius(cl) > 1.0  # Hi = 0 is unstable somewhere in the range
+    res = pick_gain(d, n_hi=61, n_lg=11)
+    assert res.zoomed and min(res.scan.Hi_V_per_A) > 0.0
+    fig = pick_figure(res, design_Hi_V_per_A=d.control.Hi_V_per_A)
+    ax = fig.axes[0]
+    spans = []
+    for p in ax.patches:
+        if p.get_hatch() == "//":
+            xy = p.get_xy() if hasattr(p, "get_xy") and not hasattr(p, "get_width") else None
+            if xy is not None:
+                spans.append((float(np.min(xy[:, 0])), float(np.max(xy[:, 0]))))
+            else:
+                spans.append((p.get_x(), p.get_x() + p.get_width()))
+    assert any(a <= 0.0 <= b for a, b in spans), spans
