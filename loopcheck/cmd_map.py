@@ -9,6 +9,7 @@ import typer
 
 from loopcheck.cli_common import (
     atomic_write_text,
+    case_tolerance,
     check_figure_output,
     check_output,
     fail,
@@ -102,10 +103,18 @@ def map_command(
             atomic_write_text(csv_path, csv_text(smap))
         except OSError as exc:
             write_failure("--csv", csv_path, exc)
+    from loopcheck.range_verdict import headline, range_verdict
+
+    rv = range_verdict(design, case_tolerance(loaded))
     if json_output:
-        typer.echo(json_line(json_record(smap, loaded.path, output, csv_path)))
+        typer.echo(json_line({**json_record(smap, loaded.path, output, csv_path), "headline": headline(rv),
+                              "range_verdict": rv.to_dict()}))
     else:
-        typer.echo(summary_text(smap, loaded.path, output, csv_path))
+        text = summary_text(smap, loaded.path, output, csv_path)
+        if rv.declared:  # the case's own verdict over what it declares, under the title
+            first, _, rest = text.partition("\n")
+            text = f"{first}\n  case verdict: {headline(rv)}\n{rest}"
+        typer.echo(text)
 
 
 # --- rendering of the results (text only; numpy imported lazily) -------------

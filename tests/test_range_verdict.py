@@ -110,3 +110,11 @@ def test_export_header_warns_and_opt_in_error_stops_the_build(tmp_path):
     prefix = next(ln.split()[1] for ln in h.read_text().splitlines() if ln.startswith("#ifndef") and "ALLOW_RANGE" in ln)
     ok = subprocess.run(["gcc", "-fsyntax-only", f"-D{prefix}", "-I", str(tmp_path), str(c)], capture_output=True, text=True)
     assert ok.returncode == 0, ok.stderr
+
+
+def test_map_states_the_case_verdict_over_its_range():
+    r = CliRunner().invoke(app, ["map", str(BENCH), "--x-points", "10", "--y-points", "10", "--quiet"], env=ENV)
+    assert r.exit_code == 0, r.stderr
+    assert r.stdout.splitlines()[1].startswith("  case verdict: NOT STABLE")
+    r = CliRunner().invoke(app, ["map", str(BENCH), "--x-points", "10", "--y-points", "10", "--quiet", "--json"], env=ENV)
+    assert json.loads(r.stdout)["range_verdict"]["stable_everywhere"] is False
