@@ -91,30 +91,13 @@ def print_warnings(case) -> None:
 
 
 def to_jsonable(obj):
-    """Plain JSON-ready copy of ``obj``: non-finite floats become None,
-    tuples lists, complex numbers ``[re, im]``, numpy scalars and arrays
-    Python numbers and lists, dataclasses dicts."""
-    if obj is None or isinstance(obj, (bool, str)):
-        return obj
-    if isinstance(obj, int):
-        return obj
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, complex):
-        return [to_jsonable(obj.real), to_jsonable(obj.imag)]
-    if isinstance(obj, dict):
-        return {str(k): to_jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [to_jsonable(v) for v in obj]
-    if hasattr(obj, "__dataclass_fields__"):
-        import dataclasses
+    """Plain JSON-ready copy of ``obj`` (:func:`loopcheck.plain.plain`):
+    non-finite floats become None, tuples lists, complex numbers
+    ``[re, im]``, numpy scalars and arrays Python numbers and lists,
+    dataclasses dicts."""
+    from loopcheck.plain import plain
 
-        return to_jsonable(dataclasses.asdict(obj))
-    if hasattr(obj, "tolist"):  # numpy scalar or array, without importing numpy
-        return to_jsonable(obj.tolist())
-    if hasattr(obj, "__fspath__"):
-        return os.fspath(obj)
-    raise TypeError(f"cannot turn {type(obj).__name__} into JSON")
+    return plain(obj)
 
 
 def json_line(obj) -> str:

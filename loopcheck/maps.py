@@ -237,6 +237,12 @@ class StabilityMap:
     sensitivity_peak_hz: np.ndarray | None = None
     design_line: object | None = None
 
+    def to_dict(self) -> dict:
+        """Plain dict of every field (arrays as nested lists; None for non-finite numbers)."""
+        from .plain import plain
+
+        return {f: plain(getattr(self, f)) for f in self.__dataclass_fields__}
+
     @property
     def stable_fraction(self) -> float:
         """Share of grid points that are stable [-]."""

@@ -157,6 +157,12 @@ class PickResult:
     variants: tuple[str, ...]
     zoomed: bool = False
 
+    def to_dict(self) -> dict:
+        """Plain dict of every field (arrays as nested lists; None for non-finite numbers)."""
+        from .plain import plain
+
+        return {f: plain(getattr(self, f)) for f in self.__dataclass_fields__}
+
 
 def default_hi_range(design: Design, spec: ToleranceSpec | None = None) -> tuple[float, float]:
     """Symmetric Hi search range [V/A]: +-1.5 * 2*pi*f_crit * L1_min.

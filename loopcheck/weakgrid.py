@@ -978,6 +978,12 @@ class GridResult:
     worst: WorstPoint
     monte_carlo: "MonteCarloResult | None" = None
 
+    def to_dict(self) -> dict:
+        """Plain dict of every field (arrays as nested lists; None for non-finite numbers)."""
+        from .plain import plain
+
+        return {f: plain(getattr(self, f)) for f in self.__dataclass_fields__}
+
 
 def _refine_worst(design, values1: ComponentValues, Hi, Kp, targets, x, idx, radius_mode, lo, hi):
     """Refine the worst Lg between the neighbours of grid point ``idx`` by

@@ -1,0 +1,170 @@
+"""The public Python API: what a notebook needs, in SI units, with no CLI.
+
+``import loopcheck as lc`` exposes these functions lazily (numpy, scipy and
+control load on first use, so the command line stays fast). Every function
+takes a :class:`loopcheck.casefile.Case` (from :func:`read_case` or
+:func:`case_from_dict`) or a bare :class:`loopcheck.model.Design`; every
+result is a frozen dataclass in SI units with ``to_dict()`` (or
+:func:`to_dict` for any of them). See docs/api.md for a worked example.
+
+Nothing here prints; bad input raises :class:`loopcheck.casefile.CaseError`
+(one line naming the table and key) or ValueError.
+"""
+
+from __future__ import annotations
+
+import os
+
+__all__ = [
+    "read_case", "case_from_dict", "analyse", "verdict_over_range", "stability_map", "design_point_line",
+    "sweep_grid", "pick_gain", "closed_loop_summary", "control_systems", "to_dict",
+]
+
+
+def read_case(path: str | os.PathLike):
+    """Read and check a TOML case file; returns a :class:`loopcheck.casefile.Case`
+    (``.design`` holds the SI parameters, ``.tables`` the optional tables)."""
+    from .casefile import read_case as _read
+
+    return _read(path)
+
+
+def case_from_dict(data: dict, label: str = "<dict>"):
+    """Build a case from a dict shaped like a case file, values as unit
+    strings (``"1.2 mH"``) or SI floats; checked exactly as a file is.
+
+    >>> import loopcheck as lc
+    >>> case = lc.case_from_dict({
+    ...     "filter": {"L1": "1.5 mH", "C": "8 uF", "L2": "0.6 mH"},
+    ...     "grid": {"f": "50 Hz", "Lg": "0.4 mH"},
+    ...     "sampling": {"fs": "16 kHz", "delay": 1},
+    ...     "control": {"feedback": "grid", "kind": "PI", "Kp": "9 V/A", "Ki": "900 V/A/s", "Hi": "7 V/A"},
+    ... })
+    >>> round(case.design.filter.L1_H * 1e3, 3)
+    1.5
+    """
+    from .casefile import parse_case
+
+    return parse_case(dict(data), label)
+
+
+def _design(case_or_design):
+    return getattr(case_or_design, "design", case_or_design)
+
+
+def _tolerance(case_or_design):
+    tables = getattr(case_or_design, "tables", None)
+    if tables is None:
+        return None
+    from .tolerance import parse_tolerance_table
+
+    return parse_tolerance_table(tables.get("tolerance"), case_or_design.where("tolerance"), case_or_design.design)
+
+
+def _targets(case_or_design):
+    tables = getattr(case_or_design, "tables", None)
+    if tables is None:
+        return None
+    from .weakgrid import parse_targets
+
+    return parse_targets(tables.get("targets"), case_or_design.where("targets"))
+
+
+def analyse(case_or_design):
+    """Verdict (closed-loop eigenvalues) and margins at the nominal point:
+    a :class:`loopcheck.results.Analysis`."""
+    from .analysis import analyse as _analyse
+
+    return _analyse(_design(case_or_design))
+
+
+def verdict_over_range(case_or_design):
+    """Verdict over the declared Lg range and tolerance corners:
+    a :class:`loopcheck.range_verdict.RangeVerdict`."""
+    from .range_verdict import range_verdict as _rv
+
+    return _rv(_design(case_or_design), _tolerance(case_or_design))
+
+
+def _spec(case_or_design, x, y, x_range, y_range, x_points, y_points, metrics):
+    from .map_table import Overrides, map_spec
+
+    case = case_or_design
+    if not hasattr(case, "tables"):
+        from .casefile import Case
+
+        case = Case(path="<design>", design=case_or_design)
+    rng = lambda r: None if r is None else tuple(str(v) if not isinstance(v, str) else v for v in r)  # noqa: E731
+    return case, map_spec(case, Overrides(x=x, x_range=rng(x_range), x_points=x_points, y=y, y_range=rng(y_range),
+                                          y_points=y_points, metrics=None if metrics is None else tuple(metrics)))
+
+
+def stability_map(case_or_design, x: str | None = None, y: str | None = None, *, x_range=None, y_range=None,
+                  x_points: int | None = None, y_points: int | None = None, metrics=None):
+    """Stability map over two parameters (defaults from the case's ``[map]``
+    table, else fr/fs against Hi): a :class:`loopcheck.maps.StabilityMap`.
+    Ranges are pairs of unit strings or SI numbers."""
+    from .maps import compute_map
+
+    case, spec = _spec(case_or_design, x, y, x_range, y_range, x_points, y_points, metrics)
+    return compute_map(case.design, spec)
+
+
+def design_point_line(case_or_design, x: str | None = None, y: str | None = None):
+    """Every stable interval of the y parameter through the design point
+    (whole gain line): a :class:`loopcheck.design_line.DesignLine`."""
+    from .design_line import design_line as _dl
+
+    case, spec = _spec(case_or_design, x, y, None, None, 2, 2, None)
+    return _dl(case.design, spec)
+
+
+def sweep_grid(case_or_design, Lg_range_H: tuple[float, float] | None = None):
+    """The design over its grid-inductance range [H] (default: the case's)
+    and tolerance corners: a :class:`loopcheck.weakgrid.GridResult`."""
+    from .weakgrid import sweep_grid as _sweep
+
+    return _sweep(_design(case_or_design), Lg_range_H, _tolerance(case_or_design), _targets(case_or_design))
+
+
+def pick_gain(case_or_design, Lg_range_H: tuple[float, float] | None = None, also_kp: bool = False):
+    """The damping gain Hi (and Kp with ``also_kp``) with the most worst-case
+    room: a :class:`loopcheck.pick.PickResult`."""
+    from .pick import pick_gain as _pick
+
+    return _pick(_design(case_or_design), Lg_range_H, _tolerance(case_or_design), _targets(case_or_design),
+                 also_kp=also_kp)
+
+
+def closed_loop_summary(case_or_design):
+    """Tracking bandwidth and dominant poles:
+    a :class:`loopcheck.closed_loop.ClosedLoopSummary`."""
+    from .closed_loop import characterise
+
+    d = _design(case_or_design)
+    return characterise(d, analyse(d))
+
+
+def control_systems(case_or_design):
+    """The loop as python-control discrete-time state-space objects
+    ``(open_loop, closed_loop)`` with ``dt = Ts``: the loop gain L (broken
+    at the current controller, damping loop closed; input the current error
+    [A], output the regulated current [A]) and the reference-to-current
+    closed loop L/(1 + L), so python-control's own tools apply."""
+    import control as ct
+    import numpy as np
+
+    from .loop import build_loop
+
+    d = _design(case_or_design)
+    A, B, C = build_loop(d).open_loop()
+    D = np.zeros((C.shape[0], B.shape[1]))
+    Ts = d.sampling.Ts_s
+    return ct.ss(A, B, C, D, Ts), ct.ss(A - B @ C, B, C, D, Ts)
+
+
+def to_dict(result) -> dict:
+    """Plain dict (JSON-ready: None for non-finite numbers) of any result."""
+    from .plain import plain
+
+    return plain(result)
