@@ -311,6 +311,8 @@ def read_case(path: str | os.PathLike) -> Case:
         raise CaseError(f"{label}: cannot read the case file: it is a directory") from None
     except OSError as exc:
         raise CaseError(f"{label}: cannot read the case file: {exc.strerror or exc}") from None
+    except (MemoryError, ValueError) as exc:  # e.g. an embedded NUL in the name, no memory left
+        raise CaseError(f"{label}: cannot read the case file: {type(exc).__name__}: {exc}") from None
     if len(raw) > MAX_CASE_BYTES:
         raise CaseError(f"{label}: the case file is larger than {MAX_CASE_BYTES} bytes; not a case file?")
     try:
@@ -328,7 +330,26 @@ def case_from_string(text: str, path_label: str = "<string>") -> Case:
         msg = str(exc).splitlines()[0] if str(exc) else "syntax error"
         msg = msg[0].lower() + msg[1:] if msg else msg
         raise CaseError(f"{path_label}: not valid TOML: {msg}") from None
+    except RecursionError:
+        line = _line_of(text, r"(?:[\[{]\s*){100,}")
+        raise CaseError(f"{path_label}: not a case file: arrays or tables nested too deeply{line}") from None
+    except ValueError as exc:  # e.g. Python's limit on the digits of an integer
+        if "digits" in str(exc):
+            line = _line_of(text, r"\d[\d_]{1000,}")
+            raise CaseError(f"{path_label}: not a case file: a whole number with too many digits{line} "
+                            f"(write it as a float or with a unit prefix)") from None
+        raise CaseError(f"{path_label}: not valid TOML: {exc}") from None
+    except MemoryError:
+        raise CaseError(f"{path_label}: not a case file: too large to read") from None
     return parse_case(data, path_label)
+
+
+def _line_of(text: str, pattern: str) -> str:
+    """`` (line N)`` for the first match of ``pattern`` in ``text``, or ""."""
+    import re
+
+    m = re.search(pattern, text)
+    return f" (line {text.count(chr(10), 0, m.start()) + 1})" if m else ""
 
 
 def parse_case(data: dict, path_label: str) -> Case:
