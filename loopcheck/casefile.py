@@ -376,6 +376,7 @@ def parse_case(data: dict, path_label: str) -> Case:
     if not name:
         name = os.path.splitext(os.path.basename(path_label))[0]
     design = Design(filter=filt, grid=grid, sampling=sampling, control=control, name=name)
+    check_plausible(design, path_label)
     _check_resonance(design, path_label, warnings)
     tables = {k: read_table(data, k, top) for k in OPTIONAL_TABLES if k in data}
     return Case(path=path_label, design=design, tables=tables, warnings=tuple(warnings), description=description)
@@ -392,6 +393,72 @@ FS_MIN_HZ = 1e3
 FS_MAX_HZ = 200e3
 R_MAX_OHM = 10.0
 F1_RANGE_HZ = (40.0, 70.0)
+
+
+#: Hard limits (errors): values outside these ranges are refused, because no
+#: LCL-filtered converter has them and the numerics (matrix exponentials,
+#: eigenvalues, simulation step counts) are not meant for them. Documented in
+#: docs/case-file.md ("Plausibility ranges").
+L_LIMITS_H = (1e-9, 10.0)  # L1, L2, Ld; Lg and Lg_range at most the upper end
+C_LIMITS_F = (1e-12, 1.0)  # C, Cd
+R_MAX_LIMIT_OHM = 1e3  # R1, R2, Rg, Rd
+FS_LIMITS_HZ = (100.0, 10e6)
+F1_LIMITS_HZ = (1.0, 1e3)
+S_LIMITS_VA = (1.0, 1e10)
+V_LIMITS_V = (1.0, 1e7)
+SCR_LIMITS = (0.01, 1e6)
+#: Gains relative to the filter's own impedance scale Z = 2*pi*fs*(L1 + L2)
+#: [V/A]: |Kp| and |Hi| from 1e-6 Z to 100 Z; Ki, Kr (V/A/s) at most
+#: 100 Z * 2*pi*fs; wc at most pi*fs (the Nyquist frequency in rad/s).
+GAIN_SPAN = (1e-6, 100.0)
+
+
+def gain_scale_V_per_A(design: Design) -> float:
+    """The impedance scale Z = 2*pi*fs*(L1 + L2) [V/A] that bounds the gains."""
+    return 2.0 * math.pi * design.sampling.fs_hz * (design.filter.L1_H + design.filter.L2_H)
+
+
+def check_plausible(design: Design, path_label: str) -> None:
+    """Raise :class:`CaseError` (one line naming table and key) for a value
+    outside the ranges this tool analyses (see the ``*_LIMITS`` constants
+    and docs/case-file.md)."""
+    f, g, s, c = design.filter, design.grid, design.sampling, design.control
+    wf, wg, wsm, wct = (where(path_label, t) for t in ("filter", "grid", "sampling", "control"))
+    wd = where(path_label, "filter.damping")
+
+    def out_of(wh, key, value, lo, hi, unit):
+        if not lo <= value <= hi:
+            raise CaseError(
+                f"{wh} {key}: {value:g} {unit} is outside the range this tool analyses "
+                f"({lo:g} to {hi:g} {unit}; see docs/case-file.md, plausibility ranges)"
+            )
+
+    out_of(wf, "L1", f.L1_H, *L_LIMITS_H, "H")
+    out_of(wf, "L2", f.L2_H, *L_LIMITS_H, "H")
+    out_of(wf, "C", f.C_F, *C_LIMITS_F, "F")
+    out_of(wf, "R1", f.R1_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    out_of(wf, "R2", f.R2_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    d = f.damping
+    if d.kind != "none":
+        out_of(wd, "Rd", d.Rd_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    if d.kind in ("split-RC", "split-RLC"):
+        out_of(wd, "Cd", d.Cd_F, *C_LIMITS_F, "F")
+    if d.kind == "split-RLC":
+        out_of(wd, "Ld", d.Ld_H, *L_LIMITS_H, "H")
+    out_of(wg, "Lg", g.Lg_H, 0.0, L_LIMITS_H[1], "H")
+    if g.Lg_range_H is not None:
+        out_of(wg, "Lg_range", g.Lg_range_H[1], 0.0, L_LIMITS_H[1], "H")
+    out_of(wg, "Rg", g.Rg_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    out_of(wsm, "fs", s.fs_hz, *FS_LIMITS_HZ, "Hz")
+    z = gain_scale_V_per_A(design)
+    lo, hi = GAIN_SPAN[0] * z, GAIN_SPAN[1] * z
+    out_of(wct, "Kp", c.Kp_V_per_A, lo, hi, "V/A")
+    out_of(wct, "Hi", abs(c.Hi_V_per_A), 0.0, hi, "V/A (magnitude)")
+    w_nyq = math.pi * s.fs_hz
+    out_of(wct, "Ki", c.Ki_V_per_As, 0.0, hi * 2.0 * w_nyq, "V/A/s")
+    kr_hi = hi if c.wc_rad_s > 0 else hi * 2.0 * w_nyq
+    out_of(wct, "Kr", c.Kr, 0.0, kr_hi, "V/A" if c.wc_rad_s > 0 else "V/A/s")
+    out_of(wct, "wc", c.wc_rad_s, 0.0, w_nyq, "rad/s")
 
 
 def _bare(table: dict, key: str) -> bool:
@@ -463,14 +530,14 @@ def _read_damping(t: dict, w: str, warnings: list[str]) -> PassiveDamping:
 
 def _read_grid(t: dict, w: str, warnings: list[str]) -> Grid:
     check_keys(t, ("f", "Lg", "Rg", "Lg_range", "scr", "scr_range", "S", "V"), w)
-    f = read_quantity(t, "f", "frequency", w, 50.0, positive=True)
+    f = read_quantity(t, "f", "frequency", w, 50.0, positive=True, minimum=F1_LIMITS_HZ[0], maximum=F1_LIMITS_HZ[1])
     if not F1_RANGE_HZ[0] <= f <= F1_RANGE_HZ[1]:
         warnings.append(f"{w} f: a fundamental of {f:g} Hz is unusual for a public grid (50 or 60 Hz)")
     Rg = read_quantity(t, "Rg", "resistance", w, 0.0, nonnegative=True)
     if Rg > R_MAX_OHM:
         warnings.append(f"{w} Rg: {Rg:g} Ohm is implausibly large for a grid resistance")
-    S = read_quantity(t, "S", "apparent_power", w, None, positive=True)
-    V = read_quantity(t, "V", "voltage", w, None, positive=True)
+    S = read_quantity(t, "S", "apparent_power", w, None, positive=True, minimum=S_LIMITS_VA[0], maximum=S_LIMITS_VA[1])
+    V = read_quantity(t, "V", "voltage", w, None, positive=True, minimum=V_LIMITS_V[0], maximum=V_LIMITS_V[1])
 
     def need_rating(key: str) -> None:
         missing = [k for k, v in (("S", S), ("V", V)) if v is None]
@@ -485,7 +552,7 @@ def _read_grid(t: dict, w: str, warnings: list[str]) -> Grid:
         raise _fail(w, "scr", "give either Lg or scr, not both")
     if "scr" in t:
         need_rating("scr")
-        scr = read_quantity(t, "scr", "ratio", w, positive=True)
+        scr = read_quantity(t, "scr", "ratio", w, positive=True, minimum=SCR_LIMITS[0], maximum=SCR_LIMITS[1])
         Lg = float(lg_from_scr(scr, S, V, f))
     else:
         Lg = read_quantity(t, "Lg", "inductance", w, 0.0, nonnegative=True)
@@ -501,6 +568,8 @@ def _read_grid(t: dict, w: str, warnings: list[str]) -> Grid:
     elif "scr_range" in t:
         need_rating("scr_range")
         s_lo, s_hi = read_pair(t, "scr_range", "ratio", w, positive=True)
+        for key_value in (s_lo, s_hi):
+            _check_range(key_value, key_value, "scr_range", w, False, False, SCR_LIMITS[0], SCR_LIMITS[1])
         # a strong grid (high SCR) has a small inductance
         Lg_range = (float(lg_from_scr(s_hi, S, V, f)), float(lg_from_scr(s_lo, S, V, f)))
     if Lg_range is not None and not (Lg_range[0] <= Lg <= Lg_range[1]):

@@ -89,6 +89,8 @@ class LoopcheckGroup(TyperGroup):
         finally:
             try:
                 cli_common.end_session(commit)
+            except BrokenPipeError:  # the reader of a pipe went away: nothing more to say
+                code = 1
             except OSError as exc:
                 typer.echo(f"error: cannot write an output: {cli_common.one_line(str(exc))}", err=True)
                 code = cli_common.EXIT_BAD_INPUT
