@@ -645,7 +645,10 @@ def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sa
     if kind == "PI":
         Ki = read_quantity(t, "Ki", "integral_gain", w, nonnegative=True)
         if Ki == 0:
-            warnings.append(f'{w} Ki: zero, so the "PI" controller is a plain P controller')
+            warnings.append(
+                f'{w} Ki: zero, so the "PI" controller is a plain P controller; the verdict and margins are '
+                f'those of kind = "P" (the inert integrator is left out: it has no effect on the loop)'
+            )
     elif "Ki" in t:
         read_quantity(t, "Ki", "integral_gain", w, nonnegative=True)
         warnings.append(f'{w} Ki: not used with kind = "{kind}"; ignored')
@@ -654,7 +657,10 @@ def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sa
             raise _fail(w, "Kr", 'missing; expected a resonant gain in V/A/s (e.g. "600 V/A/s")')
         Kr = _read_resonant_gain(t, w, wc, warnings)
         if Kr == 0:
-            warnings.append(f'{w} Kr: zero, so the "PR" controller is a plain P controller')
+            warnings.append(
+                f'{w} Kr: zero, so the "PR" controller is a plain P controller; the verdict and margins are '
+                f'those of kind = "P" (the inert resonators are left out: they have no effect on the loop)'
+            )
         harmonics = read_int_list(t, "harmonics", w, (), minimum=2)
         nyquist = sampling.fs_hz / 2.0
         for h in (1,) + harmonics:

@@ -19,6 +19,7 @@ from typing import Annotated, Optional
 import signal
 import sys
 import threading
+import warnings
 
 import typer
 from typer.core import TyperGroup
@@ -67,6 +68,9 @@ class LoopcheckGroup(TyperGroup):
         previous = signal.signal(signal.SIGTERM, _on_sigterm) if on_main else None
         cli_common.begin_session()
         commit = False
+        caught = warnings.catch_warnings()
+        caught.__enter__()
+        warnings.showwarning = _one_line_warning
         try:
             try:
                 rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
@@ -95,11 +99,22 @@ class LoopcheckGroup(TyperGroup):
                 typer.echo(f"error: cannot write an output: {cli_common.one_line(str(exc))}", err=True)
                 code = cli_common.EXIT_BAD_INPUT
             finally:
+                caught.__exit__(None, None, None)
                 if on_main:
                     signal.signal(signal.SIGTERM, previous if previous is not None else signal.SIG_DFL)
         if standalone_mode:
             sys.exit(code)
         return code
+
+
+def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """A Python warning that escaped the code that should have handled it
+    (e.g. a numpy RuntimeWarning) as one line on stderr, without the source
+    line."""
+    import os
+
+    where = f"{os.path.basename(filename)}:{lineno}"
+    typer.echo(f"warning: {category.__name__} in {where}: {cli_common.one_line(str(message))}", err=True)
 
 
 def _refuse_non_finite(ctx) -> None:

@@ -443,7 +443,7 @@ def controller_sections(design: Design) -> ControllerCoefficients:
     c = design.control
     Ts = design.sampling.Ts_s
     f1 = design.grid.f_hz
-    blocks = controller_blocks(c, f1, Ts)
+    blocks = controller_blocks(c, f1, Ts, keep_inert=True)
     Kp = float(np.asarray(blocks[0].D).reshape(()))
     sections: list[Section] = []
     if c.kind == "PI":
@@ -670,7 +670,12 @@ def loop_figures(design: Design, coeffs: ControllerCoefficients, fb_scale: float
     same code as for the design itself (see :mod:`loopcheck.margins` for the
     methods and references)."""
     Hi = coeffs.Hi / ic_scale
-    blocks = [proportional_block(coeffs.Kp / fb_scale)] + [section_block(s, fb_scale) for s in coeffs.sections]
+    # a section whose numerator is all zero (Ki or Kr = 0, or quantised to 0)
+    # never reaches the output: its pole is unobservable and must not decide
+    # the verdict (see loopcheck.controller.controller_blocks)
+    blocks = [proportional_block(coeffs.Kp / fb_scale)] + [
+        section_block(s, fb_scale) for s in coeffs.sections if any(x != 0.0 for x in s.b)
+    ]
     base = build_loop(design, Hi_V_per_A=Hi)
     loop = dataclasses.replace(base, controller=parallel(blocks), blocks=tuple(blocks))
     a = analyse_loop(design, loop, tol)
