@@ -70,6 +70,10 @@ CORE_TABLES = ("filter", "grid", "sampling", "control")
 OPTIONAL_TABLES = ("map", "tolerance", "firmware", "scenario", "targets", "pwm", "harmonics", "report")
 #: Plain keys allowed at the top of the file.
 TOP_KEYS = ("name", "description")
+#: At most this many harmonic resonators in [control] harmonics.
+MAX_HARMONICS = 12
+#: Longest accepted ``name`` [characters].
+NAME_MAX_CHARS = 200
 #: Larger files are refused (a case file is a few hundred bytes).
 MAX_CASE_BYTES = 1_000_000
 
@@ -368,6 +372,8 @@ def parse_case(data: dict, path_label: str) -> Case:
         raise _fail(top, key, f"unknown key; {tip}(allowed at the top: {', '.join(TOP_KEYS)} and the tables)")
     warnings: list[str] = []
     name = read_string(data, "name", top, default="")
+    if len(name) > NAME_MAX_CHARS:
+        raise _fail(top, "name", f"at most {NAME_MAX_CHARS} characters (it titles every figure), got {len(name)}")
     description = read_string(data, "description", top, default="")
     filt = _read_filter(read_table(data, "filter", top), where(path_label, "filter"), warnings)
     grid = _read_grid(read_table(data, "grid", top), where(path_label, "grid"), warnings)
@@ -662,6 +668,9 @@ def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sa
                 f'those of kind = "P" (the inert resonators are left out: they have no effect on the loop)'
             )
         harmonics = read_int_list(t, "harmonics", w, (), minimum=2)
+        if len(harmonics) > MAX_HARMONICS:
+            raise _fail(w, "harmonics", f"at most {MAX_HARMONICS} harmonic resonators are analysed "
+                                        f"(the work grows with the cube of the loop order), got {len(harmonics)}")
         nyquist = sampling.fs_hz / 2.0
         for h in (1,) + harmonics:
             if h * grid.f_hz >= nyquist:

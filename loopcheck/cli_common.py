@@ -407,6 +407,41 @@ def atomic_write_text(path: str | os.PathLike, text: str, encoding: str = "utf-8
     atomic_write_bytes(path, text.encode(encoding))
 
 
+# --- work limits -------------------------------------------------------------
+#
+# Work and memory are estimated before the long computation; a request
+# beyond a limit is refused with one line saying what to reduce (documented
+# in docs/bad-input.md). The limits keep one run within about a minute or
+# two and well under a gigabyte on a small machine.
+
+#: (map limits: loopcheck.map_table.MAX_MAP_WORK and friends)
+#: pick: loop evaluations = Hi values x Lg samples x (corners + 1) x Kp values.
+MAX_PICK_EVALUATIONS = 250_000
+#: grid --monte-carlo: units drawn (about 0.25 ms each measured).
+MAX_MONTE_CARLO_UNITS = 200_000
+#: simulate: fine time points x loop states (float64 histories per run).
+MAX_SIMULATION_WORK = 6e7
+
+
+def check_work(amount: float, limit: float, what: str, reduce: str) -> None:
+    """Fail (one line, exit 2) when the estimated ``amount`` of work exceeds
+    ``limit``: ``what`` says what was asked, ``reduce`` what to lower."""
+    if amount > limit:
+        fail(f"{what}: too much work ({amount:.3g}, the limit is {limit:.3g}); {reduce}")
+
+
+def check_simulation_size(design, duration_s: float, points_per_sample: int, runs: int = 1) -> None:
+    """Refuse a simulation whose waveform histories would not fit the limit
+    :data:`MAX_SIMULATION_WORK` (fine time points x loop states x runs)."""
+    points = duration_s * design.sampling.fs_hz * points_per_sample
+    from loopcheck.model import loop_state_count
+
+    states = loop_state_count(design) + 2
+    check_work(points * states * runs, MAX_SIMULATION_WORK,
+               f"simulate: {points:.3g} time points x about {states} states x {runs} run(s)",
+               "shorten --duration ([scenario] duration) or lower [scenario] points_per_sample")
+
+
 # --- progress ----------------------------------------------------------------
 
 
