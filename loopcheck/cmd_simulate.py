@@ -215,7 +215,7 @@ def simulate(
                     with open(tmp, "w", encoding="utf-8", newline="") as fh:
                         write_csv(wave, fh)
             except OSError as exc:
-                fail(f"{path}: cannot write the CSV ({exc.strerror or exc})")
+                fail(f"--csv {path}: cannot write the CSV ({exc.strerror or exc})")
             files.append(str(path))
 
     verdict = classify(abs(rc.dominant_pole))
