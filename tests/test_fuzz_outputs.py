@@ -121,7 +121,7 @@ def test_an_output_that_is_the_input_is_refused(tmp_path_factory, writer, how, n
 QUICK = [w for w in WRITERS if w[1] in ("--csv", "--header", "--json-out")]
 
 
-@settings(derandomize=True, max_examples=6, deadline=None,
+@settings(derandomize=True, max_examples=4, deadline=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(writer=st.sampled_from(QUICK), name=names, depth=st.integers(1, 3))
 def test_writing_through_a_symlink_keeps_the_link(tmp_path_factory, writer, name, depth):
@@ -168,7 +168,7 @@ def test_a_fifo_is_written_directly(tmp_path_factory, points):
     assert os.path.exists(fifo) and not os.path.isfile(fifo)  # still a FIFO
 
 
-@settings(derandomize=True, max_examples=4, deadline=None,
+@settings(derandomize=True, max_examples=3, deadline=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(which=st.sampled_from(["figure", "csv"]), stem=names)
 def test_outputs_of_one_run_are_committed_together(tmp_path_factory, monkeypatch, which, stem):
