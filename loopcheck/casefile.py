@@ -70,6 +70,10 @@ CORE_TABLES = ("filter", "grid", "sampling", "control")
 OPTIONAL_TABLES = ("map", "tolerance", "firmware", "scenario", "targets", "pwm", "harmonics", "report")
 #: Plain keys allowed at the top of the file.
 TOP_KEYS = ("name", "description")
+#: At most this many harmonic resonators in [control] harmonics.
+MAX_HARMONICS = 12
+#: Longest accepted ``name`` [characters].
+NAME_MAX_CHARS = 200
 #: Larger files are refused (a case file is a few hundred bytes).
 MAX_CASE_BYTES = 1_000_000
 
@@ -311,6 +315,8 @@ def read_case(path: str | os.PathLike) -> Case:
         raise CaseError(f"{label}: cannot read the case file: it is a directory") from None
     except OSError as exc:
         raise CaseError(f"{label}: cannot read the case file: {exc.strerror or exc}") from None
+    except (MemoryError, ValueError) as exc:  # e.g. an embedded NUL in the name, no memory left
+        raise CaseError(f"{label}: cannot read the case file: {type(exc).__name__}: {exc}") from None
     if len(raw) > MAX_CASE_BYTES:
         raise CaseError(f"{label}: the case file is larger than {MAX_CASE_BYTES} bytes; not a case file?")
     try:
@@ -328,7 +334,26 @@ def case_from_string(text: str, path_label: str = "<string>") -> Case:
         msg = str(exc).splitlines()[0] if str(exc) else "syntax error"
         msg = msg[0].lower() + msg[1:] if msg else msg
         raise CaseError(f"{path_label}: not valid TOML: {msg}") from None
+    except RecursionError:
+        line = _line_of(text, r"(?:[\[{]\s*){100,}")
+        raise CaseError(f"{path_label}: not a case file: arrays or tables nested too deeply{line}") from None
+    except ValueError as exc:  # e.g. Python's limit on the digits of an integer
+        if "digits" in str(exc):
+            line = _line_of(text, r"\d[\d_]{1000,}")
+            raise CaseError(f"{path_label}: not a case file: a whole number with too many digits{line} "
+                            f"(write it as a float or with a unit prefix)") from None
+        raise CaseError(f"{path_label}: not valid TOML: {exc}") from None
+    except MemoryError:
+        raise CaseError(f"{path_label}: not a case file: too large to read") from None
     return parse_case(data, path_label)
+
+
+def _line_of(text: str, pattern: str) -> str:
+    """`` (line N)`` for the first match of ``pattern`` in ``text``, or ""."""
+    import re
+
+    m = re.search(pattern, text)
+    return f" (line {text.count(chr(10), 0, m.start()) + 1})" if m else ""
 
 
 def parse_case(data: dict, path_label: str) -> Case:
@@ -347,6 +372,8 @@ def parse_case(data: dict, path_label: str) -> Case:
         raise _fail(top, key, f"unknown key; {tip}(allowed at the top: {', '.join(TOP_KEYS)} and the tables)")
     warnings: list[str] = []
     name = read_string(data, "name", top, default="")
+    if len(name) > NAME_MAX_CHARS:
+        raise _fail(top, "name", f"at most {NAME_MAX_CHARS} characters (it titles every figure), got {len(name)}")
     description = read_string(data, "description", top, default="")
     filt = _read_filter(read_table(data, "filter", top), where(path_label, "filter"), warnings)
     grid = _read_grid(read_table(data, "grid", top), where(path_label, "grid"), warnings)
@@ -355,6 +382,7 @@ def parse_case(data: dict, path_label: str) -> Case:
     if not name:
         name = os.path.splitext(os.path.basename(path_label))[0]
     design = Design(filter=filt, grid=grid, sampling=sampling, control=control, name=name)
+    check_plausible(design, path_label)
     _check_resonance(design, path_label, warnings)
     tables = {k: read_table(data, k, top) for k in OPTIONAL_TABLES if k in data}
     return Case(path=path_label, design=design, tables=tables, warnings=tuple(warnings), description=description)
@@ -371,6 +399,72 @@ FS_MIN_HZ = 1e3
 FS_MAX_HZ = 200e3
 R_MAX_OHM = 10.0
 F1_RANGE_HZ = (40.0, 70.0)
+
+
+#: Hard limits (errors): values outside these ranges are refused, because no
+#: LCL-filtered converter has them and the numerics (matrix exponentials,
+#: eigenvalues, simulation step counts) are not meant for them. Documented in
+#: docs/case-file.md ("Plausibility ranges").
+L_LIMITS_H = (1e-9, 10.0)  # L1, L2, Ld; Lg and Lg_range at most the upper end
+C_LIMITS_F = (1e-12, 1.0)  # C, Cd
+R_MAX_LIMIT_OHM = 1e3  # R1, R2, Rg, Rd
+FS_LIMITS_HZ = (100.0, 10e6)
+F1_LIMITS_HZ = (1.0, 1e3)
+S_LIMITS_VA = (1.0, 1e10)
+V_LIMITS_V = (1.0, 1e7)
+SCR_LIMITS = (0.01, 1e6)
+#: Gains relative to the filter's own impedance scale Z = 2*pi*fs*(L1 + L2)
+#: [V/A]: |Kp| and |Hi| from 1e-6 Z to 100 Z; Ki, Kr (V/A/s) at most
+#: 100 Z * 2*pi*fs; wc at most pi*fs (the Nyquist frequency in rad/s).
+GAIN_SPAN = (1e-6, 100.0)
+
+
+def gain_scale_V_per_A(design: Design) -> float:
+    """The impedance scale Z = 2*pi*fs*(L1 + L2) [V/A] that bounds the gains."""
+    return 2.0 * math.pi * design.sampling.fs_hz * (design.filter.L1_H + design.filter.L2_H)
+
+
+def check_plausible(design: Design, path_label: str) -> None:
+    """Raise :class:`CaseError` (one line naming table and key) for a value
+    outside the ranges this tool analyses (see the ``*_LIMITS`` constants
+    and docs/case-file.md)."""
+    f, g, s, c = design.filter, design.grid, design.sampling, design.control
+    wf, wg, wsm, wct = (where(path_label, t) for t in ("filter", "grid", "sampling", "control"))
+    wd = where(path_label, "filter.damping")
+
+    def out_of(wh, key, value, lo, hi, unit):
+        if not lo <= value <= hi:
+            raise CaseError(
+                f"{wh} {key}: {value:g} {unit} is outside the range this tool analyses "
+                f"({lo:g} to {hi:g} {unit}; see docs/case-file.md, plausibility ranges)"
+            )
+
+    out_of(wf, "L1", f.L1_H, *L_LIMITS_H, "H")
+    out_of(wf, "L2", f.L2_H, *L_LIMITS_H, "H")
+    out_of(wf, "C", f.C_F, *C_LIMITS_F, "F")
+    out_of(wf, "R1", f.R1_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    out_of(wf, "R2", f.R2_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    d = f.damping
+    if d.kind != "none":
+        out_of(wd, "Rd", d.Rd_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    if d.kind in ("split-RC", "split-RLC"):
+        out_of(wd, "Cd", d.Cd_F, *C_LIMITS_F, "F")
+    if d.kind == "split-RLC":
+        out_of(wd, "Ld", d.Ld_H, *L_LIMITS_H, "H")
+    out_of(wg, "Lg", g.Lg_H, 0.0, L_LIMITS_H[1], "H")
+    if g.Lg_range_H is not None:
+        out_of(wg, "Lg_range", g.Lg_range_H[1], 0.0, L_LIMITS_H[1], "H")
+    out_of(wg, "Rg", g.Rg_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
+    out_of(wsm, "fs", s.fs_hz, *FS_LIMITS_HZ, "Hz")
+    z = gain_scale_V_per_A(design)
+    lo, hi = GAIN_SPAN[0] * z, GAIN_SPAN[1] * z
+    out_of(wct, "Kp", c.Kp_V_per_A, lo, hi, "V/A")
+    out_of(wct, "Hi", abs(c.Hi_V_per_A), 0.0, hi, "V/A (magnitude)")
+    w_nyq = math.pi * s.fs_hz
+    out_of(wct, "Ki", c.Ki_V_per_As, 0.0, hi * 2.0 * w_nyq, "V/A/s")
+    kr_hi = hi if c.wc_rad_s > 0 else hi * 2.0 * w_nyq
+    out_of(wct, "Kr", c.Kr, 0.0, kr_hi, "V/A" if c.wc_rad_s > 0 else "V/A/s")
+    out_of(wct, "wc", c.wc_rad_s, 0.0, w_nyq, "rad/s")
 
 
 def _bare(table: dict, key: str) -> bool:
@@ -442,14 +536,14 @@ def _read_damping(t: dict, w: str, warnings: list[str]) -> PassiveDamping:
 
 def _read_grid(t: dict, w: str, warnings: list[str]) -> Grid:
     check_keys(t, ("f", "Lg", "Rg", "Lg_range", "scr", "scr_range", "S", "V"), w)
-    f = read_quantity(t, "f", "frequency", w, 50.0, positive=True)
+    f = read_quantity(t, "f", "frequency", w, 50.0, positive=True, minimum=F1_LIMITS_HZ[0], maximum=F1_LIMITS_HZ[1])
     if not F1_RANGE_HZ[0] <= f <= F1_RANGE_HZ[1]:
         warnings.append(f"{w} f: a fundamental of {f:g} Hz is unusual for a public grid (50 or 60 Hz)")
     Rg = read_quantity(t, "Rg", "resistance", w, 0.0, nonnegative=True)
     if Rg > R_MAX_OHM:
         warnings.append(f"{w} Rg: {Rg:g} Ohm is implausibly large for a grid resistance")
-    S = read_quantity(t, "S", "apparent_power", w, None, positive=True)
-    V = read_quantity(t, "V", "voltage", w, None, positive=True)
+    S = read_quantity(t, "S", "apparent_power", w, None, positive=True, minimum=S_LIMITS_VA[0], maximum=S_LIMITS_VA[1])
+    V = read_quantity(t, "V", "voltage", w, None, positive=True, minimum=V_LIMITS_V[0], maximum=V_LIMITS_V[1])
 
     def need_rating(key: str) -> None:
         missing = [k for k, v in (("S", S), ("V", V)) if v is None]
@@ -464,7 +558,7 @@ def _read_grid(t: dict, w: str, warnings: list[str]) -> Grid:
         raise _fail(w, "scr", "give either Lg or scr, not both")
     if "scr" in t:
         need_rating("scr")
-        scr = read_quantity(t, "scr", "ratio", w, positive=True)
+        scr = read_quantity(t, "scr", "ratio", w, positive=True, minimum=SCR_LIMITS[0], maximum=SCR_LIMITS[1])
         Lg = float(lg_from_scr(scr, S, V, f))
     else:
         Lg = read_quantity(t, "Lg", "inductance", w, 0.0, nonnegative=True)
@@ -480,6 +574,8 @@ def _read_grid(t: dict, w: str, warnings: list[str]) -> Grid:
     elif "scr_range" in t:
         need_rating("scr_range")
         s_lo, s_hi = read_pair(t, "scr_range", "ratio", w, positive=True)
+        for key_value in (s_lo, s_hi):
+            _check_range(key_value, key_value, "scr_range", w, False, False, SCR_LIMITS[0], SCR_LIMITS[1])
         # a strong grid (high SCR) has a small inductance
         Lg_range = (float(lg_from_scr(s_hi, S, V, f)), float(lg_from_scr(s_lo, S, V, f)))
     if Lg_range is not None and not (Lg_range[0] <= Lg <= Lg_range[1]):
@@ -555,7 +651,10 @@ def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sa
     if kind == "PI":
         Ki = read_quantity(t, "Ki", "integral_gain", w, nonnegative=True)
         if Ki == 0:
-            warnings.append(f'{w} Ki: zero, so the "PI" controller is a plain P controller')
+            warnings.append(
+                f'{w} Ki: zero, so the "PI" controller is a plain P controller; the verdict and margins are '
+                f'those of kind = "P" (the inert integrator is left out: it has no effect on the loop)'
+            )
     elif "Ki" in t:
         read_quantity(t, "Ki", "integral_gain", w, nonnegative=True)
         warnings.append(f'{w} Ki: not used with kind = "{kind}"; ignored')
@@ -564,8 +663,14 @@ def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sa
             raise _fail(w, "Kr", 'missing; expected a resonant gain in V/A/s (e.g. "600 V/A/s")')
         Kr = _read_resonant_gain(t, w, wc, warnings)
         if Kr == 0:
-            warnings.append(f'{w} Kr: zero, so the "PR" controller is a plain P controller')
+            warnings.append(
+                f'{w} Kr: zero, so the "PR" controller is a plain P controller; the verdict and margins are '
+                f'those of kind = "P" (the inert resonators are left out: they have no effect on the loop)'
+            )
         harmonics = read_int_list(t, "harmonics", w, (), minimum=2)
+        if len(harmonics) > MAX_HARMONICS:
+            raise _fail(w, "harmonics", f"at most {MAX_HARMONICS} harmonic resonators are analysed "
+                                        f"(the work grows with the cube of the loop order), got {len(harmonics)}")
         nyquist = sampling.fs_hz / 2.0
         for h in (1,) + harmonics:
             if h * grid.f_hz >= nyquist:

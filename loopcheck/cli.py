@@ -16,11 +16,131 @@ from __future__ import annotations
 
 from typing import Annotated, Optional
 
+import signal
+import sys
+import threading
+import warnings
+
 import typer
+from typer.core import TyperGroup
+from typer.exceptions import TyperException
 
 from loopcheck import __version__
+from loopcheck import cli_common
+
+
+class _Terminated(SystemExit):
+    """SIGTERM, raised in the main thread so that ``finally`` blocks and the
+    atomic writes clean up their temporary files (exit status 143)."""
+
+
+def _on_sigterm(signum, frame):  # pragma: no cover - exercised in a subprocess test
+    raise _Terminated(128 + signal.SIGTERM)
+
+
+class LoopcheckGroup(TyperGroup):
+    """The command group with loopcheck's run discipline:
+
+    - a usage error of the command line (unknown option, missing argument,
+      a value that is not a number) is one line ``error: ...`` on stderr
+      naming the option, exit 2, instead of the usage block;
+    - one run is one output session (see :mod:`loopcheck.cli_common`): the
+      output files appear together when the command ends with exit 0 or 4,
+      and none when it fails, is interrupted or terminated;
+    - SIGTERM ends the run like Ctrl-C: temporary files are removed.
+    """
+
+    def get_command(self, ctx, cmd_name):
+        cmd = super().get_command(ctx, cmd_name)
+        if cmd is not None and not getattr(cmd, "_finite_checked", False):
+            invoke = cmd.invoke
+
+            def checked_invoke(sub_ctx, _invoke=invoke):
+                _refuse_non_finite(sub_ctx)
+                return _invoke(sub_ctx)
+
+            cmd.invoke = checked_invoke
+            cmd._finite_checked = True
+        return cmd
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        on_main = threading.current_thread() is threading.main_thread()
+        previous = signal.signal(signal.SIGTERM, _on_sigterm) if on_main else None
+        cli_common.begin_session()
+        commit = False
+        caught = warnings.catch_warnings()
+        caught.__enter__()
+        warnings.showwarning = _one_line_warning
+        try:
+            try:
+                rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
+                                  standalone_mode=False, **extra)
+            except TyperException as exc:
+                if not hasattr(exc, "format_message"):
+                    raise
+                if type(exc).__name__ == "NoArgsIsHelpError":
+                    exc.show()
+                    code = getattr(exc, "exit_code", cli_common.EXIT_BAD_INPUT)
+                else:
+                    typer.echo(f"error: {cli_common.one_line(_usage_text(exc))}", err=True)
+                    code = getattr(exc, "exit_code", cli_common.EXIT_BAD_INPUT)
+            except typer.Abort:
+                typer.echo("error: aborted", err=True)
+                code = 1
+            else:
+                code = rv if isinstance(rv, int) else 0
+            commit = code in (cli_common.EXIT_OK, cli_common.EXIT_UNSTABLE)
+        finally:
+            try:
+                cli_common.end_session(commit)
+            except BrokenPipeError:  # the reader of a pipe went away: nothing more to say
+                code = 1
+            except OSError as exc:
+                typer.echo(f"error: cannot write an output: {cli_common.one_line(str(exc))}", err=True)
+                code = cli_common.EXIT_BAD_INPUT
+            finally:
+                caught.__exit__(None, None, None)
+                if on_main:
+                    signal.signal(signal.SIGTERM, previous if previous is not None else signal.SIG_DFL)
+        if standalone_mode:
+            sys.exit(code)
+        return code
+
+
+def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """A Python warning that escaped the code that should have handled it
+    (e.g. a numpy RuntimeWarning) as one line on stderr, without the source
+    line."""
+    import os
+
+    where = f"{os.path.basename(filename)}:{lineno}"
+    typer.echo(f"warning: {category.__name__} in {where}: {cli_common.one_line(str(message))}", err=True)
+
+
+def _refuse_non_finite(ctx) -> None:
+    """A float option given as nan or inf is bad input (one line, exit 2):
+    ``--sensitivity-peak nan`` would otherwise remove the limit silently."""
+    import math
+
+    for param in ctx.command.params:
+        value = ctx.params.get(param.name)
+        values = value if isinstance(value, (tuple, list)) else (value,)
+        for v in values:
+            if isinstance(v, float) and not math.isfinite(v):
+                name = max(param.opts, key=len) if param.opts else param.name
+                cli_common.fail(f"{name} {v!r}: must be a finite number")
+
+
+def _usage_text(exc) -> str:
+    """One line for a usage error, naming the command and the option."""
+    message = exc.format_message()
+    ctx = getattr(exc, "ctx", None)
+    command = ctx.command_path if ctx is not None else "loopcheck"
+    return f"{command}: {message} (see {command} --help)"
+
 
 app = typer.Typer(
+    cls=LoopcheckGroup,
     name="loopcheck",
     help=(
         "Stability and margins of the digitally sampled current loop of an "

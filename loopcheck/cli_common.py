@@ -42,25 +42,43 @@ EXIT_BAD_INPUT = 2
 EXIT_UNSTABLE = 4
 
 
+def one_line(message: str) -> str:
+    """``message`` with line breaks and other control characters escaped
+    (``\\n``, ``\\r``, ``\\t``, ``\\x1b`` ...), so a diagnostic is always one line
+    even when it quotes a value or a file name that contains a newline."""
+    if message.isprintable():
+        return message
+    out = []
+    for ch in message:
+        if ch.isprintable() or ch == " ":
+            out.append(ch)
+        else:
+            out.append(repr(ch)[1:-1] if ch not in "'\"" else ch)
+    return "".join(out)
+
+
 def fail(message: str, code: int = EXIT_BAD_INPUT) -> NoReturn:
     """Print ``error: <message>`` (one line) on stderr and exit with ``code``."""
-    typer.echo(f"error: {message}", err=True)
+    typer.echo(f"error: {one_line(message)}", err=True)
     raise typer.Exit(code)
 
 
 def warn(message: str) -> None:
-    """Print ``warning: <message>`` on stderr."""
-    typer.echo(f"warning: {message}", err=True)
+    """Print ``warning: <message>`` (one line) on stderr."""
+    typer.echo(f"warning: {one_line(message)}", err=True)
 
 
 def load_case(path: str | os.PathLike):
-    """Read one case file; on bad input print the error and exit 2."""
+    """Read one case file; on bad input print the error and exit 2. The path
+    is remembered as an input: no output of the command may overwrite it."""
     from loopcheck.casefile import CaseError, read_case
 
     try:
-        return read_case(path)
+        case = read_case(path)
     except CaseError as exc:
         fail(str(exc))
+    register_input(path)
+    return case
 
 
 def load_cases(paths: Sequence[str | os.PathLike]) -> list:
@@ -76,8 +94,10 @@ def load_cases(paths: Sequence[str | os.PathLike]) -> list:
             errors.append(str(exc))
     if errors:
         for msg in errors:
-            typer.echo(f"error: {msg}", err=True)
+            typer.echo(f"error: {one_line(msg)}", err=True)
         raise typer.Exit(EXIT_BAD_INPUT)
+    for p in paths:
+        register_input(p)
     return cases
 
 
@@ -106,18 +126,130 @@ def json_line(obj) -> str:
 
 
 # --- atomic output -----------------------------------------------------------
+#
+# One command run is one *session* (opened by the CLI entry in loopcheck.cli):
+# it remembers the input case files and the outputs, refuses an output that
+# is an input or another output, and commits every output file of the run
+# together at the end (all renamed, or none). Outside a session (library
+# use, direct calls) each atomic write is renamed into place at once.
+
+
+class _Session:
+    def __init__(self) -> None:
+        self.inputs: list[str] = []
+        self.outputs: list[tuple[str, str]] = []  # (path, option)
+        self.pending: list[tuple[str, str, bool]] = []  # (temporary, target, direct)
+
+
+_session: _Session | None = None
+
+
+def begin_session() -> None:
+    """Start a command run: forget earlier inputs and outputs."""
+    global _session
+    _session = _Session()
+
+
+def end_session(commit: bool) -> None:
+    """End a command run: with ``commit`` move every pending output into
+    place (all of them, in the order written), else delete their temporary
+    files so no output of a failed run appears."""
+    global _session
+    session, _session = _session, None
+    if session is None:
+        return
+    pending = session.pending
+    try:
+        if commit:
+            while pending:
+                tmp, target, direct = pending[0]
+                _finish(tmp, target, direct)
+                pending.pop(0)
+    finally:
+        for tmp, _target, _direct in pending:
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+
+
+def _same_file(a: str, b: str) -> bool:
+    try:
+        return os.path.samefile(a, b)
+    except OSError:
+        return os.path.realpath(a) == os.path.realpath(b)
+
+
+def _input_clash(path: str) -> str | None:
+    """The input case file that ``path`` would overwrite, or None."""
+    if _session is None:
+        return None
+    for inp in _session.inputs:
+        if _same_file(path, inp):
+            return inp
+    return None
+
+
+def register_input(path: str | os.PathLike) -> None:
+    """Remember ``path`` as an input of this run; fail (one line, exit 2)
+    when an output already given resolves to it."""
+    if _session is None:
+        return
+    p = os.fspath(path)
+    _session.inputs.append(p)
+    for out, option in _session.outputs:
+        if _same_file(out, p):
+            fail(f"{option} {out}: is the input case file {p}; refusing to overwrite it")
+
+
+def _remember_output(path: str, option: str) -> None:
+    if _session is None:
+        return
+    inp = _input_clash(path)
+    if inp is not None:
+        fail(f"{option} {path}: is the input case file {inp}; refusing to overwrite it")
+    for out, other in _session.outputs:
+        if _same_file(out, path) and (other != option or out != path):
+            fail(f"{option} {path}: is also the output of {other}; give each output its own file")
+    _session.outputs.append((path, option))
+
+
+def _is_special(path: str) -> bool:
+    """An existing target that is not a regular file (a terminal, a pipe,
+    ``/dev/stdout``, a FIFO, a character device) or any name under /dev or
+    /proc: written directly, never renamed over or truncated."""
+    import stat
+
+    p = os.path.abspath(path)
+    try:
+        mode = os.stat(p).st_mode
+    except OSError:
+        return False
+    if p.startswith(("/dev/", "/proc/")):
+        return not stat.S_ISDIR(mode)
+    return not stat.S_ISREG(mode) and not stat.S_ISDIR(mode)
+
+
+def _resolved(path: str) -> str:
+    """The file an output path names: links followed, except for special
+    files, which are used as given."""
+    p = os.path.abspath(path)
+    return p if _is_special(p) else os.path.realpath(p)
 
 
 def output_problem(path: str | os.PathLike, directory: bool = False) -> str | None:
     """Why ``path`` cannot be written as an output file (``directory``: as an
     output directory), or None when it can. Checks only; creates nothing.
     Commands call it before the long work, so a bad output path costs no
-    computation and leaves nothing behind."""
-    p = os.path.abspath(os.fspath(path))
+    computation and leaves nothing behind. A symbolic link is judged by
+    the file it points to (outputs are written through links)."""
+    p = _resolved(os.fspath(path))
     if not directory and os.path.isdir(p):
         return "is a directory; give a file name"
     if directory and os.path.exists(p) and not os.path.isdir(p):
         return "exists and is not a directory"
+    if not directory and _is_special(p):
+        return None if os.access(p, os.W_OK) else "cannot write it: no permission"
+    if not directory and _input_clash(p) is not None:
+        return f"is the input case file {_input_clash(p)}; refusing to overwrite it"
     parent = p if directory else os.path.dirname(p)
     while not os.path.exists(parent):  # the first existing ancestor decides
         up = os.path.dirname(parent)
@@ -132,12 +264,17 @@ def output_problem(path: str | os.PathLike, directory: bool = False) -> str | No
 
 
 def check_output(path: str | os.PathLike | None, option: str, directory: bool = False) -> None:
-    """Fail (one line, exit 2) when ``path`` given with ``option`` cannot be written."""
+    """Fail (one line, exit 2) when ``path`` given with ``option`` cannot be
+    written: a directory given as a file, a missing permission, the input
+    case file itself (also through a link), or the same file as another
+    output of the run."""
     if path is None:
         return
     problem = output_problem(path, directory)
     if problem:
         fail(f"{option} {os.fspath(path)}: {problem}")
+    if not directory:
+        _remember_output(os.fspath(path), option)
 
 
 def write_failure(option: str, path: str | os.PathLike, exc: OSError) -> NoReturn:
@@ -166,6 +303,23 @@ def write_figure(fig, path: str | os.PathLike, option: str = "-o", dpi: int = 13
         write_failure(option, path, exc)
 
 
+def _finish(tmp: str, target: str, direct: bool) -> None:
+    """Move a finished temporary file to ``target``: rename for a regular
+    file, copy the bytes for a terminal, pipe, FIFO or device (opened for
+    appending, so a redirected stdout is not truncated), then delete it."""
+    if direct:
+        with open(tmp, "rb") as src, open(target, "ab") as dst:
+            while True:
+                block = src.read(1 << 20)
+                if not block:
+                    break
+                dst.write(block)
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        return
+    _set_default_mode(tmp)
+    os.replace(tmp, target)
+
 
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike) -> Iterator[str]:
@@ -175,25 +329,39 @@ def atomic_path(path: str | os.PathLike) -> Iterator[str]:
     ``path`` (so e.g. matplotlib picks the format from it). Missing parent
     directories are created.
 
+    A symbolic link is written through: the temporary file goes beside the
+    file the link points to, which is replaced; the link stays a link. A
+    target that is not a regular file (``/dev/stdout``, a FIFO) is written
+    directly once the content is complete. An input case file of the
+    running command is refused (``OSError``). Inside a command run the
+    rename waits until the command has finished, so the outputs of one
+    run appear together or not at all.
+
     Example::
 
         with atomic_path("out/map.png") as tmp:
             fig.savefig(tmp)
     """
-    target = os.fspath(path)
+    target = _resolved(os.fspath(path))
     problem = output_problem(target)
     if problem:  # a clear reason instead of mkstemp's "File exists" or "Is a directory"
         raise OSError(problem)
-    directory = os.path.dirname(os.path.abspath(target))
-    os.makedirs(directory, exist_ok=True)
+    direct = _is_special(target)
     base = os.path.basename(target)
     suffix = os.path.splitext(base)[1]
+    if direct:
+        directory = None  # the system's temporary directory
+    else:
+        directory = os.path.dirname(target)
+        os.makedirs(directory, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=f".tmp{suffix}", dir=directory)
     os.close(fd)
     try:
         yield tmp
-        _set_default_mode(tmp)
-        os.replace(tmp, target)
+        if _session is not None:
+            _session.pending.append((tmp, target, direct))
+        else:
+            _finish(tmp, target, direct)
     except BaseException:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
@@ -220,6 +388,41 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
 def atomic_write_text(path: str | os.PathLike, text: str, encoding: str = "utf-8") -> None:
     """Write ``text`` to ``path`` atomically (temporary file + ``os.replace``)."""
     atomic_write_bytes(path, text.encode(encoding))
+
+
+# --- work limits -------------------------------------------------------------
+#
+# Work and memory are estimated before the long computation; a request
+# beyond a limit is refused with one line saying what to reduce (documented
+# in docs/bad-input.md). The limits keep one run within about a minute or
+# two and well under a gigabyte on a small machine.
+
+#: (map limits: loopcheck.map_table.MAX_MAP_WORK and friends)
+#: pick: loop evaluations = Hi values x Lg samples x (corners + 1) x Kp values.
+MAX_PICK_EVALUATIONS = 250_000
+#: grid --monte-carlo: units drawn (about 0.25 ms each measured).
+MAX_MONTE_CARLO_UNITS = 200_000
+#: simulate: fine time points x loop states (float64 histories per run).
+MAX_SIMULATION_WORK = 6e7
+
+
+def check_work(amount: float, limit: float, what: str, reduce: str) -> None:
+    """Fail (one line, exit 2) when the estimated ``amount`` of work exceeds
+    ``limit``: ``what`` says what was asked, ``reduce`` what to lower."""
+    if amount > limit:
+        fail(f"{what}: too much work ({amount:.3g}, the limit is {limit:.3g}); {reduce}")
+
+
+def check_simulation_size(design, duration_s: float, points_per_sample: int, runs: int = 1) -> None:
+    """Refuse a simulation whose waveform histories would not fit the limit
+    :data:`MAX_SIMULATION_WORK` (fine time points x loop states x runs)."""
+    points = duration_s * design.sampling.fs_hz * points_per_sample
+    from loopcheck.model import loop_state_count
+
+    states = loop_state_count(design) + 2
+    check_work(points * states * runs, MAX_SIMULATION_WORK,
+               f"simulate: {points:.3g} time points x about {states} states x {runs} run(s)",
+               "shorten --duration ([scenario] duration) or lower [scenario] points_per_sample")
 
 
 # --- progress ----------------------------------------------------------------

@@ -271,7 +271,7 @@ def grid(
     lg_range: LgRangeOption = None,
     points: Annotated[int, typer.Option("--points", min=2, max=401, help="Rows of the Lg table.")] = 11,
     monte_carlo: Annotated[
-        int, typer.Option("--monte-carlo", min=0, max=1_000_000, help="Draw this many units from the tolerances and Lg range (0: off).")
+        int, typer.Option("--monte-carlo", min=0, max=200_000, help="Draw this many units from the tolerances and Lg range (0: off).")
     ] = 0,
     seed: Annotated[int, typer.Option("--seed", min=0, help="Seed of the Monte Carlo draw (same seed, same units).")] = 1,
     confidence: Annotated[

@@ -11,7 +11,9 @@ import typer
 
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
+    MAX_PICK_EVALUATIONS,
     check_figure_output,
+    check_work,
     fail,
     json_line,
     load_case,
@@ -171,6 +173,11 @@ def pick(
     if kr is not None and not also_kp:
         fail("--kp-range needs --also-kp")
     print_warnings(loaded)
+    corners = 2 ** len(spec.components) if spec is not None else 1
+    check_work(points * lg_points * (corners + 1) * (7 if also_kp else 1), MAX_PICK_EVALUATIONS,
+               f"pick: {points} Hi values x {lg_points} Lg samples x {corners + 1} filters"
+               + (" x 7 Kp values" if also_kp else ""),
+               "lower --points or --lg-points, or use --nominal-only")
 
     from loopcheck.pick import pick_gain
 

@@ -41,7 +41,7 @@ def report(
     loaded = load_case(case)
     out = output if output is not None else Path(f"{case.stem}-report.html")
     if out.exists() and out.is_dir():
-        fail(f"{out}: is a directory; give a file name such as {out / (case.stem + '-report.html')}")
+        fail(f"-o {out}: is a directory; give a file name such as {out / (case.stem + '-report.html')}")
     if out.suffix.lower() not in (".html", ".htm") and not out.is_dir():
         fail(f"-o {out}: the report is an HTML file; use a name ending in .html (print it to PDF from a browser)")
     check_output(out, "-o")
@@ -67,7 +67,7 @@ def report(
     try:
         atomic_write_text(out, result.html)
     except OSError as exc:
-        fail(f"{out}: cannot write the report ({exc.strerror or exc})")
+        fail(f"-o {out}: cannot write the report ({exc.strerror or exc})")
     for msg in result.problems:
         typer.echo(f"warning: {msg}", err=True)
 

@@ -10,6 +10,7 @@ import typer
 
 from loopcheck.cli_common import (
     check_figure_output,
+    check_simulation_size,
     atomic_path,
     check_output,
     fail,
@@ -147,6 +148,7 @@ def simulate(
     except CaseError as exc:
         fail(str(exc))
     Hi_cmp = _parse_compare(compare) if compare is not None else None
+    check_simulation_size(loaded.design, sc.duration_s, sc.points_per_sample, runs=1 if Hi_cmp is None else 2)
     check_figure_output(output)
     check_output(csv, "--csv")
     if csv is not None and Hi_cmp is not None:
@@ -213,7 +215,7 @@ def simulate(
                     with open(tmp, "w", encoding="utf-8", newline="") as fh:
                         write_csv(wave, fh)
             except OSError as exc:
-                fail(f"{path}: cannot write the CSV ({exc.strerror or exc})")
+                fail(f"--csv {path}: cannot write the CSV ({exc.strerror or exc})")
             files.append(str(path))
 
     verdict = classify(abs(rc.dominant_pole))

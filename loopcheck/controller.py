@@ -153,16 +153,39 @@ def parallel(blocks: list[DiscreteSS]) -> DiscreteSS:
     return DiscreteSS(A, B, C, D)
 
 
-def controller_blocks(control, f1_hz, Ts, Kp=None, Ki=None, Kr=None) -> list[DiscreteSS]:
+def _is_zero(gain) -> bool:
+    """A single gain that is exactly zero (a batch of gains is never dropped)."""
+    return np.ndim(gain) == 0 and float(gain) == 0.0
+
+
+def controller_blocks(control, f1_hz, Ts, Kp=None, Ki=None, Kr=None, keep_inert: bool = False) -> list[DiscreteSS]:
     """The blocks of a :class:`loopcheck.model.Control` at sampling period Ts [s].
 
     Kp, Ki, Kr override the control's gains (arrays allowed, for sweeps).
-    Resonators are placed at the fundamental f1_hz [Hz] and at each harmonic."""
+    Resonators are placed at the fundamental f1_hz [Hz] and at each harmonic.
+
+    A mode with a single gain of exactly zero (a PI with Ki = 0, a PR with
+    Kr = 0) is left out unless ``keep_inert``: its state never reaches the
+    output (C = 0 and D = 0), so its pole on the unit circle is unobservable;
+    the minimal realisation of the controller has no such pole, and it must
+    not turn the verdict into "marginal". The controller is then exactly the
+    P controller with the same Kp.
+
+    References
+    ----------
+    .. [1] R. E. Kalman, "Mathematical description of linear dynamical
+       systems", J. SIAM Control, ser. A, vol. 1, no. 2, pp. 152-192, 1963
+       (the input-output behaviour is that of the controllable and
+       observable part; from memory).
+    """
     Kp = control.Kp_V_per_A if Kp is None else Kp
     Ki = control.Ki_V_per_As if Ki is None else Ki
     Kr = control.Kr if Kr is None else Kr
     blocks = [proportional_block(Kp)]
-    if control.kind == "PI":
+    inert = not keep_inert and _is_zero(Ki if control.kind == "PI" else Kr)
+    if control.kind in ("PI", "PR") and inert:
+        pass  # Ki = 0 or Kr = 0: the P controller (see above)
+    elif control.kind == "PI":
         blocks.append(integrator_block(Ki, Ts, control.integrator))
     elif control.kind == "PR":
         for h in (1,) + tuple(control.harmonics):

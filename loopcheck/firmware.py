@@ -443,7 +443,7 @@ def controller_sections(design: Design) -> ControllerCoefficients:
     c = design.control
     Ts = design.sampling.Ts_s
     f1 = design.grid.f_hz
-    blocks = controller_blocks(c, f1, Ts)
+    blocks = controller_blocks(c, f1, Ts, keep_inert=True)
     Kp = float(np.asarray(blocks[0].D).reshape(()))
     sections: list[Section] = []
     if c.kind == "PI":
@@ -670,7 +670,12 @@ def loop_figures(design: Design, coeffs: ControllerCoefficients, fb_scale: float
     same code as for the design itself (see :mod:`loopcheck.margins` for the
     methods and references)."""
     Hi = coeffs.Hi / ic_scale
-    blocks = [proportional_block(coeffs.Kp / fb_scale)] + [section_block(s, fb_scale) for s in coeffs.sections]
+    # a section whose numerator is all zero (Ki or Kr = 0, or quantised to 0)
+    # never reaches the output: its pole is unobservable and must not decide
+    # the verdict (see loopcheck.controller.controller_blocks)
+    blocks = [proportional_block(coeffs.Kp / fb_scale)] + [
+        section_block(s, fb_scale) for s in coeffs.sections if any(x != 0.0 for x in s.b)
+    ]
     base = build_loop(design, Hi_V_per_A=Hi)
     loop = dataclasses.replace(base, controller=parallel(blocks), blocks=tuple(blocks))
     a = analyse_loop(design, loop, tol)
@@ -956,7 +961,11 @@ FIRMWARE_KEYS = (
     "peak_shift_limit",
 )
 
-_C_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+_C_IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")  # used with fullmatch: "$" would accept a trailing newline
+#: Longest accepted C symbol prefix [characters].
+PREFIX_MAX_CHARS = 32
+#: Range of the firmware scalings (count/A, count/V) that are exported.
+SCALE_LIMITS = (1e-6, 1e12)
 
 
 def read_firmware_settings(table: dict, where: str, damping_gain_used: bool = True) -> tuple[FirmwareSettings, list[str]]:
@@ -1054,6 +1063,12 @@ def read_firmware_settings(table: dict, where: str, damping_gain_used: bool = Tr
                 f"modulator: {period:g} counts (duty 1) / {vdc:g} V = {mod:.10g} count/V "
                 f"(u = (CMP/{period:g} - 1/2) * {vdc:g} V, leg voltage against the dc-link midpoint)"
             )
+        for key, value, unit in (("current_counts_per_A" if cur_kind == "direct" else "current_sensor", cur, "count/A"),
+                                 ("ic_counts_per_A" if ic_kind == "direct" else "ic_sensor", icc, "count/A"),
+                                 ("modulator_counts_per_V" if mod_kind == "direct" else "pwm_period_counts", mod, "count/V")):
+            if not SCALE_LIMITS[0] <= value <= SCALE_LIMITS[1]:
+                raise err(key, f"gives {value:g} {unit}, outside the range this tool exports "
+                               f"({SCALE_LIMITS[0]:g} to {SCALE_LIMITS[1]:g} {unit}; see docs/case-file.md)")
         scaling = FirmwareScaling(cur, icc, mod, tuple(notes))
     rounding = read_choice(t, "rounding", ROUNDING_MODES, where, "nearest-even")
     fmt = NumberFormat()
@@ -1067,7 +1082,10 @@ def read_firmware_settings(table: dict, where: str, damping_gain_used: bool = Tr
     if "rounding" in t and not fmt.is_fixed:
         warnings.append(f"{where} rounding: applies to fixed-point formats only; ignored for {fmt.label}")
     prefix = read_string(t, "prefix", where, "LC_")
-    if not _C_IDENT.match(prefix):
-        raise err("prefix", f'expected the start of a C identifier (letters, digits, "_"; not starting with a digit), got "{prefix}"')
+    if not _C_IDENT.fullmatch(prefix) or len(prefix) > PREFIX_MAX_CHARS:
+        from .units import shown
+
+        raise err("prefix", f'expected the start of a C identifier (letters, digits, "_"; not starting with a digit; '
+                            f'at most {PREFIX_MAX_CHARS} characters), got {shown(prefix)}')
     limit = read_quantity(t, "peak_shift_limit", "percent", where, DEFAULT_PEAK_SHIFT_LIMIT, positive=True)
     return FirmwareSettings(scaling, fmt, prefix, limit), warnings

@@ -25,6 +25,7 @@ matplotlib is imported inside the function (object-oriented
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 
@@ -103,7 +104,9 @@ def grid_figure(result, *, design_Lg_H: float | None = None, scr_of=None, title:
         if not corners:
             return None
         vals = np.array([getattr(f.margins, arr_name) for f in corners], dtype=float)
-        with np.errstate(all="ignore"):
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            # a column where every corner is undefined (e.g. all unstable) is NaN: drawn as a gap
+            warnings.filterwarnings("ignore", "All-NaN slice", RuntimeWarning)
             return fn(vals)
 
     # 2. phase margin

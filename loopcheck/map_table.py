@@ -279,8 +279,37 @@ def map_spec(case, overrides: Overrides | None = None):
     raw_m, label_m = source("metrics")
     metrics = () if raw_m is None else _read_metrics(raw_m, label_m, METRICS)
     spec = MapSpec(axes["x"], axes["y"], metrics)
+    _check_work(design, spec)
     _check_resonance(case, spec, source)
     return spec
+
+
+#: Work limits of a map (docs/bad-input.md): grid points x (loop states)^3
+#: (eigenvalues per point; 1000 x 1000 points at 10 states is 1e9, about
+#: 25 s measured), points in total, and points with --metric.
+MAX_MAP_WORK = 4e9
+MAX_MAP_POINTS = 4_000_000
+MAX_MAP_METRIC_POINTS = 1_000_000
+
+
+def _check_work(design, spec) -> None:
+    """Refuse a map beyond the work limits above (points, points with
+    metrics, points x states^3)."""
+    from loopcheck.model import loop_state_count
+
+    points = spec.x.points * spec.y.points
+    states = loop_state_count(design)
+    size = f"{spec.x.points} x {spec.y.points} points"
+    reduce = "lower --x-points/--y-points ([map] x_points, y_points)"
+    limit = MAX_MAP_METRIC_POINTS if spec.metrics else MAX_MAP_POINTS
+    if points > limit:
+        extra = " with --metric" if spec.metrics else ""
+        raise CaseError(f"map: {size}{extra} is more than {limit:,} points; {reduce}")
+    work = points * states**3
+    if work > MAX_MAP_WORK:
+        most = int(MAX_MAP_WORK / states**3)
+        raise CaseError(f"map: {size} with about {states} loop states is too much work; {reduce} "
+                        f"to at most about {most:,} points in total, or use fewer resonators")
 
 
 def _check_resonance(case, spec, source) -> None:

@@ -168,3 +168,17 @@ def design_resonance_hz(design: Design, with_grid: bool = True) -> float:
     For the split-capacitor variants the total shunt capacitance is used."""
     L2 = design.filter.L2_H + (design.grid.Lg_H if with_grid else 0.0)
     return float(resonance_hz(design.filter.L1_H, design.filter.shunt_capacitance_F, L2))
+
+
+def loop_state_count(design: Design) -> int:
+    """Rough number of states of the sampled loop of ``design`` (for work
+    estimates): filter (3, plus 1 or 2 for split passive damping),
+    computation delay (1), controller (1 for an integrator, 2 per
+    resonator)."""
+    n = 3 + {"split-RC": 1, "split-RLC": 2}.get(design.filter.damping.kind, 0) + 1
+    c = design.control
+    if c.kind == "PI":
+        n += 1
+    elif c.kind == "PR":
+        n += 2 * (1 + len(c.harmonics))
+    return n

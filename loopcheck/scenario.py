@@ -232,6 +232,13 @@ def _show(v) -> str:
     return shown(v)
 
 
+#: Plausibility ranges of event values (errors beyond; docs/case-file.md).
+EVENT_MAX_V = 1e6
+EVENT_MAX_A = 1e6
+EVENT_MAX_LG_H = 10.0
+EVENT_FREQUENCY_HZ = (1.0, 10e6)
+
+
 def parse_event(t: dict, w: str) -> Event:
     """One event table (``[[scenario.events]]`` entry or a ``--event``
     option turned into a dict) -> :class:`Event`. ``w`` prefixes messages."""
@@ -241,33 +248,34 @@ def parse_event(t: dict, w: str) -> Event:
     check_keys(t, ("at", "kind") + _EVENT_KEYS[kind], w)
     at = read_quantity(t, "at", "time", w, nonnegative=True)
     if kind == "reference-step":
-        peak = read_quantity(t, "peak", "current", w, None, nonnegative=True)
+        peak = read_quantity(t, "peak", "current", w, None, nonnegative=True, maximum=EVENT_MAX_A)
         ph = _angle(t, "phase_deg", w)
         if peak is None and ph is None:
             raise CaseError(f"{w} peak: a reference-step needs peak (e.g. \"30 A\") and/or phase_deg")
         return Event(at, kind, peak_A=peak, phase_deg=ph)
     if kind == "grid-voltage-step":
-        return Event(at, kind, peak_V=read_quantity(t, "peak", "voltage", w, nonnegative=True))
+        return Event(at, kind, peak_V=read_quantity(t, "peak", "voltage", w, nonnegative=True, maximum=EVENT_MAX_V))
     if kind == "grid-phase-jump":
         ang = _angle(t, "by_deg", w)
         if ang is None:
             raise CaseError(f"{w} by_deg: missing; expected the jump angle in degrees (e.g. 20)")
         return Event(at, kind, angle_deg=ang)
     if kind == "grid-inductance-step":
-        return Event(at, kind, Lg_H=read_quantity(t, "Lg", "inductance", w, nonnegative=True))
+        return Event(at, kind, Lg_H=read_quantity(t, "Lg", "inductance", w, nonnegative=True, maximum=EVENT_MAX_LG_H))
     if kind == "resonance-burst":
         return Event(
             at,
             kind,
-            peak_V=read_quantity(t, "peak", "voltage", w, None, positive=True),
+            peak_V=read_quantity(t, "peak", "voltage", w, None, positive=True, maximum=EVENT_MAX_V),
             cycles=_whole(t, "cycles", w, 3, 1, 1000),
-            frequency_hz=read_quantity(t, "frequency", "frequency", w, None, positive=True),
+            frequency_hz=read_quantity(t, "frequency", "frequency", w, None, positive=True,
+                                       minimum=EVENT_FREQUENCY_HZ[0], maximum=EVENT_FREQUENCY_HZ[1]),
         )
     return Event(
         at,
         kind,
-        peak_V=read_quantity(t, "peak", "voltage", w, None),
-        width_s=read_quantity(t, "width", "time", w, None, positive=True),
+        peak_V=read_quantity(t, "peak", "voltage", w, None, minimum=-EVENT_MAX_V, maximum=EVENT_MAX_V),
+        width_s=read_quantity(t, "width", "time", w, None, positive=True, maximum=10.0),
     )
 
 
@@ -317,7 +325,7 @@ def parse_scenario(table: dict | None, where: str = "<scenario>:", extra_events=
         if phases == 2:
             raise CaseError(f"{w} phases: expected 1 or 3, got 2")
     start = read_choice(table, "start", ("steady", "rest"), w, "steady")
-    grid_peak = read_quantity(table, "grid_peak", "voltage", w, None, nonnegative=True)
+    grid_peak = read_quantity(table, "grid_peak", "voltage", w, None, nonnegative=True, maximum=EVENT_MAX_V)
     grid_phase = _angle(table, "grid_phase_deg", w, 0.0)
     harmonics = []
     raw = table.get("grid_harmonics", [])
@@ -333,9 +341,9 @@ def parse_scenario(table: dict | None, where: str = "<scenario>:", extra_events=
         order = _whole(h, "order", wh, 0, 2, 1000)
         share = read_quantity(h, "share", "percent", wh, nonnegative=True)
         harmonics.append(GridHarmonic(order, share, _angle(h, "phase_deg", wh, 0.0)))
-    ref_peak = read_quantity(table, "reference_peak", "current", w, None, nonnegative=True)
+    ref_peak = read_quantity(table, "reference_peak", "current", w, None, nonnegative=True, maximum=EVENT_MAX_A)
     ref_phase = _angle(table, "reference_phase_deg", w, 0.0)
-    trip = read_quantity(table, "trip_current", "current", w, None, positive=True)
+    trip = read_quantity(table, "trip_current", "current", w, None, positive=True, maximum=EVENT_MAX_A)
     events = []
     raw_events = table.get("events", [])
     if not isinstance(raw_events, list):

@@ -834,11 +834,14 @@ def resonance_rate_check(
         trip_current_A=math.inf,
         events=(ev0,),
     )
-    wv = simulate(d, dev, Hi_V_per_A=Hi)
+    with np.errstate(over="ignore", invalid="ignore"):  # no trip here: an unstable loop may overflow
+        wv = simulate(d, dev, Hi_V_per_A=Hi)
     poles = _closed_loop_poles(design, Lg, Hi)
     band = resonance_band_hz(design, Lg)
     dom = _upper(max(poles, key=abs))
     y = wv.i2_A[:: wv.points_per_sample][length:]
+    fin = np.isfinite(y) & (np.abs(y) < 1e150)  # a fast-growing unstable loop overflows: fit the part before
+    y = y if fin.all() else y[: int(np.argmin(fin))]
     n_used = int(y.size)
     sim_pole = env_s = env_f = None
     if n_used >= 12 and np.any(y != 0):

@@ -216,6 +216,9 @@ def parse_tolerance_table(table: dict | None, where: str, design=None) -> Tolera
             raise CaseError(f"{where} {key}: {exc}") from None
         if low <= -1.0:
             raise CaseError(f"{where} {key}: a deviation of {100 * low:g} % leaves nothing of the part, got {shown(value)}")
+        if high > 1.0:
+            raise CaseError(f"{where} {key}: a deviation of {100 * high:+g} % is not a component tolerance "
+                            f"(at most +100 %), got {shown(value)}")
         if low == 0.0 and high == 0.0:
             continue  # zero tolerance: no variation
         out.append(ComponentTolerance(key, low, high, dist))

@@ -132,16 +132,27 @@ def expected_text(dimension: str | Dimension) -> str:
     return f'{d.described} in {d.base_unit} (e.g. "{d.example}")'
 
 
+#: Longer quoted values are cut in messages (a message stays one readable line).
+SHOWN_MAX_CHARS = 60
+
+
 def shown(value: object) -> str:
-    """A case-file value as error messages quote it (TOML spelling)."""
+    """A case-file value as error messages quote it (TOML spelling): line
+    breaks and other control characters escaped (``\\n``), long texts and
+    numbers cut to :data:`SHOWN_MAX_CHARS` characters with ``...``."""
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, str):
-        return f'"{value}"'
+        text = "".join(c if c.isprintable() else repr(c)[1:-1] for c in value)
+        if len(text) > SHOWN_MAX_CHARS:
+            text = text[: SHOWN_MAX_CHARS - 3] + "..."
+        return f'"{text}"'
     if isinstance(value, dict):
         return "a table"
     if isinstance(value, list):
         return "a list"
+    if isinstance(value, int) and abs(value) >= 10**SHOWN_MAX_CHARS:
+        return f"a whole number of more than {SHOWN_MAX_CHARS} digits"
     return str(value)
 
 
@@ -153,13 +164,22 @@ def split_quantity(text: str) -> tuple[Decimal, str]:
     """
     m = _NUMBER.match(text)
     if not m:
-        raise UnitError(f'not a number with a unit: "{text}"')
+        raise UnitError(f'not a number with a unit: {shown(text)}')
     try:
         number = Decimal(m.group(1).replace("_", ""))
     except InvalidOperation:  # pragma: no cover - the regex admits only valid numbers
-        raise UnitError(f'not a number with a unit: "{text}"') from None
+        raise UnitError(f'not a number with a unit: {shown(text)}') from None
     unit = re.sub(r"\s+", "", m.group(2))
     return number, unit
+
+
+def _finite_float(number: Decimal) -> float:
+    """``float(number)``; inf for a magnitude beyond the double range (the
+    callers refuse it), 0.0 below the smallest double."""
+    try:
+        return float(number)
+    except (ArithmeticError, ValueError):
+        return math.inf
 
 
 def _unit_exponent(unit: str, d: Dimension) -> int | None:
@@ -183,7 +203,10 @@ def parse_quantity_unit(value: object, dimension: str | Dimension) -> tuple[floa
     if isinstance(value, bool) or not isinstance(value, (int, float, str)):
         raise UnitError(f"expected {expected_text(d)}, got {shown(value)}")
     if isinstance(value, (int, float)):
-        x = float(value)
+        try:
+            x = float(value)
+        except OverflowError:  # a whole number beyond the range of a double
+            x = math.inf
         if not math.isfinite(x):
             raise UnitError(f"expected {expected_text(d)}, got {shown(value)} (not a finite number)")
         return x, ""
@@ -197,10 +220,13 @@ def parse_quantity_unit(value: object, dimension: str | Dimension) -> tuple[floa
         exponent = _unit_exponent(unit, d)
         if exponent is None:
             raise UnitError(f"expected {expected_text(d)}, got {shown(value)}")
-        x_exact = number.scaleb(exponent)
-        if d.scale != 1.0:
-            x_exact = x_exact * Decimal(repr(d.scale))
-    x = float(x_exact)
+        try:
+            x_exact = number.scaleb(exponent)
+            if d.scale != 1.0:
+                x_exact = x_exact * Decimal(repr(d.scale))
+        except ArithmeticError:  # decimal.Overflow: an exponent beyond the decimal context
+            x_exact = Decimal("Infinity")
+    x = _finite_float(x_exact)
     if not math.isfinite(x):
         raise UnitError(f"expected {expected_text(d)}, got {shown(value)} (not a finite number)")
     return x, unit
@@ -238,7 +264,10 @@ def parse_tolerance(value: object) -> tuple[float, float]:
     if isinstance(value, bool) or not isinstance(value, (int, float, str)):
         raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got {shown(value)}')
     if isinstance(value, (int, float)):
-        x = abs(float(value))
+        try:
+            x = abs(float(value))
+        except OverflowError:
+            x = math.inf
         if not math.isfinite(x):
             raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got {shown(value)}')
         return -x, x
@@ -260,21 +289,25 @@ def parse_tolerance(value: object) -> tuple[float, float]:
         a, b = (_tolerance_part(p, value) for p in parts)
         low, high = min(a, b), max(a, b)
         if low > 0 or high < 0:
-            raise UnitError(f'expected a tolerance with one negative and one positive part, got "{value}"')
+            raise UnitError(f'expected a tolerance with one negative and one positive part, got {shown(value)}')
         return low, high
-    raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got "{value}"')
+    raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got {shown(value)}')
 
 
 def _tolerance_part(text: str, original: str) -> float:
     try:
         number, unit = split_quantity(text)
     except UnitError:
-        raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got "{original}"') from None
-    if unit == "%":
-        return float(number / 100)
-    if unit == "":
-        return float(number)
-    raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got "{original}"')
+        raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got {shown(original)}') from None
+    if unit in ("%", ""):
+        try:
+            x = _finite_float(number / 100 if unit == "%" else number)
+        except ArithmeticError:
+            x = math.inf
+        if not math.isfinite(x):
+            raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got {shown(original)} (not a finite number)')
+        return x
+    raise UnitError(f'expected a tolerance in % (e.g. "\u00b110 %"), got {shown(original)}')
 
 
 _ENGINEERING = ((12, "T"), (9, "G"), (6, "M"), (3, "k"), (0, ""), (-3, "m"), (-6, "u"), (-9, "n"), (-12, "p"))
