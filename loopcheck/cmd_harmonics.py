@@ -66,7 +66,7 @@ def harmonics(
         check = harmonic_check(design, pwm, op, opts.max_group, opts.max_sideband, opts.lg_points)
     except OvermodulationError as exc:
         fail(f"{loaded.where('pwm')} dc_link: {exc}")
-    losses = compare_damping(design, op, pwm)
+    losses = compare_damping(design, op, pwm, opts.max_group, opts.max_sideband)
     # the sideband estimate presumes a stable current loop; say so when it is not
     from loopcheck.analysis import analyse
 
