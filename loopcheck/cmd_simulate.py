@@ -189,13 +189,18 @@ def simulate(
     if pwm is not None and not switched:
         import numpy as np
 
-        limit = pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0
+        limit = pwm.linear_limit * (pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0)
         peak = float(np.max(np.abs(w.vi_V)))
         if peak > limit:
             notes.append(
                 f"the converter voltage reaches {peak:.4g} V peak, beyond the linear range of the modulator "
                 f"({limit:.4g} V with Vdc = {pwm.Vdc_V:.4g} V); the averaged linear model ignores this saturation"
             )
+    if switched and pwm.modulation != "sine":
+        notes.append(
+            f"[pwm] modulation = {pwm.modulation!r}: the switched model compares sinusoidal leg references with the "
+            "carrier (no zero-sequence injection), so its ripple is that of sine-triangle PWM"
+        )
     files = []
     if output is not None:
         from loopcheck.sim_plot import waveform_figure
