@@ -95,6 +95,7 @@ from scipy.special import jv
 from .limits import ABOVE_TABLE_LIMIT_PERCENT, TABLES, limit_percent, margin_db
 from .model import Design
 from .plant import OUTPUT_I2, design_plant
+from .threads import limited
 
 SCHEMES = ("three-phase", "half-bridge", "full-bridge-unipolar")
 UPDATES = ("single", "double", "natural")
@@ -439,6 +440,7 @@ def _limits(orders):
     return lim, assumed
 
 
+@limited
 def harmonic_check(
     design: Design,
     pwm: PwmSpec,

@@ -60,6 +60,7 @@ from .harmonics import (
 )
 from .model import Design, PassiveDamping, design_resonance_hz
 from .plant import design_plant
+from .threads import limited
 
 
 @dataclass(frozen=True)
@@ -261,6 +262,7 @@ def best_split_rc(design: Design, share: float = 0.5, points: int = 241) -> Desi
     return replace(design, filter=replace(f, C_F=(1 - share) * C, damping=damping))
 
 
+@limited
 def compare_damping(design: Design, op: OperatingPoint, pwm: PwmSpec | None = None,
                     max_group: int = 4, max_sideband: int = 12) -> DampingComparison:
     """The design's damping beside the alternatives (see module docstring):

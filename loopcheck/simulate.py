@@ -60,6 +60,7 @@ from .loop import build_loop
 from .model import Design, design_resonance_hz
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, design_plant
 from .scenario import INJECTION_KINDS, Event, Scenario, default_scenario
+from .threads import limited
 
 #: Names of the fine-resolution outputs, in the order of ``_OUT_ROWS``.
 FINE_SIGNALS = ("i1_A", "vc_V", "i2_A", "ic_A", "vg_V", "vi_V")
@@ -335,6 +336,7 @@ def _injection_peak(ev: Event, grid_peak: float) -> float:
     return 0.05 * grid_peak if grid_peak > 0 else 10.0
 
 
+@limited
 def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float | None = None) -> Waveforms:
     """Simulate ``design`` under ``scenario`` (default: :func:`loopcheck.scenario.default_scenario`).
 
@@ -531,6 +533,7 @@ def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float
     )
 
 
+@limited
 def steady_loop_state(design: Design, scenario: Scenario, Hi_V_per_A: float | None = None):
     """Loop states at t = 0 of the periodic steady state of the averaged
     model under the scenario's grid voltage (with harmonics) and reference
@@ -782,6 +785,7 @@ def _upper(p) -> complex:
     return complex(p.real, abs(p.imag))
 
 
+@limited
 def resonance_rate_check(
     design: Design,
     scenario: Scenario | None = None,
