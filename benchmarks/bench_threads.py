@@ -16,6 +16,11 @@ falls on all three alike:
   ``threadpoolctl.threadpool_limits(1, "blas")``, the upper bound of what a
   limit can gain.
 
+Before the commands, the kernels themselves (a 4 x 4 matrix exponential,
+batched exponentials, eigenvalues and solves of the sizes the sweeps use)
+are timed with the BLAS at its default and at one thread (medians of
+interleaved repeats, milliseconds).
+
 Printed per command: the median wall time of each setting [s], the
 ratios default/kernels and default/process-1 (above 1: the limit is
 faster) and the median CPU time of the process (all its threads) [s]. Also printed: the BLAS libraries and their default thread counts
@@ -55,15 +60,68 @@ def commands(tmp: str) -> list[tuple[str, list[str]]]:
         ("pick", ["pick", WEAK, "--json"]),
         ("export", ["export", WEAK, "-o", os.path.join(tmp, "export")]),
         ("simulate", ["simulate", WEAK, "--json"]),
+        ("simulate --switched", ["simulate", WEAK, "--switched", "--json"]),
         ("harmonics", ["harmonics", WEAK, "--json"]),
         ("report", ["report", WEAK, "-o", os.path.join(tmp, "report.html")]),
     ]
+
+
+def kernel_table(repeats: int = 15) -> None:
+    """Median wall time [ms] of each kernel at the default BLAS threads and at 1."""
+    import numpy as np
+    import scipy.linalg
+    from threadpoolctl import ThreadpoolController
+
+    import loopcheck.threads as lt
+    from loopcheck.expm import expm_batched
+
+    ctl = ThreadpoolController()
+    rng = np.random.default_rng(0)
+    A4 = rng.standard_normal((1, 4, 4))
+    A = rng.standard_normal((4000, 8, 8))
+    Bv = rng.standard_normal((4000, 8, 1))
+    S = rng.standard_normal((40, 6, 6))
+    E16 = rng.standard_normal((43, 16, 16)) * 0.3
+    H = np.lib.stride_tricks.sliding_window_view(np.sin(0.3 * np.arange(300)) * 0.99 ** np.arange(300), 151).copy()
+    kernels = {
+        "expm_batched 1 x 4 x 4": lambda: expm_batched(A4),
+        "scipy.linalg.expm 4 x 4": lambda: scipy.linalg.expm(A4[0]),
+        "expm_batched 4000 x 8 x 8": lambda: expm_batched(A),
+        "scipy.linalg.expm 40 x 6 x 6": lambda: scipy.linalg.expm(S),
+        "eigvals 4000 x 8 x 8": lambda: np.linalg.eigvals(A),
+        "solve 4000 x 8 x 8": lambda: np.linalg.solve(A, Bv),
+        "scipy.linalg.expm 43 x 16 x 16": lambda: scipy.linalg.expm(E16),  # simulate's block exponentials
+        "svd 150 x 151 (matrix pencil)": lambda: np.linalg.svd(H, full_matrices=False),  # the rate check's fit
+    }
+    shipped = lt.KERNEL_BLAS_THREADS
+    lt.KERNEL_BLAS_THREADS = None  # the kernels as they were, without loopcheck's own limit
+    print(f"\n{'kernel':<30}{'default [ms]':>13}{'1 thread [ms]':>15}{'ratio':>8}")
+    for name, fn in kernels.items():
+        fn()
+        d, o = [], []
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            fn()
+            d.append(time.perf_counter() - t0)
+            with ctl.limit(limits=1, user_api="blas"):
+                t0 = time.perf_counter()
+                fn()
+                o.append(time.perf_counter() - t0)
+        a, b = statistics.median(d) * 1e3, statistics.median(o) * 1e3
+        print(f"{name:<30}{a:>13.3f}{b:>15.3f}{a / b:>8.2f}", flush=True)
+    lt.KERNEL_BLAS_THREADS = shipped
+    t0 = time.perf_counter()
+    for _ in range(1000):
+        with lt.small_matrix_kernels():
+            pass
+    print(f"cost of entering and leaving the kernel limit: {(time.perf_counter() - t0):.3f} ms per call")
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--runs", type=int, default=5)
     ap.add_argument("--only", default="", help="comma-separated command labels (prefix match)")
+    ap.add_argument("--kernels-only", action="store_true", help="time the kernels only, not the commands")
     ap.add_argument("--report-runs", type=int, default=None, help="runs of the (slow) report command (default --runs)")
     args = ap.parse_args()
 
@@ -82,6 +140,9 @@ def main() -> None:
         print(f"  {info['internal_api']} {info.get('version')}: {info['num_threads']} threads "
               f"({os.path.basename(info['filepath'])}, user_api {info['user_api']})")
     shipped = lt.KERNEL_BLAS_THREADS
+    kernel_table()
+    if args.kernels_only:
+        return
 
     def run(argv, setting):
         lt.KERNEL_BLAS_THREADS = None if setting == "default" else shipped

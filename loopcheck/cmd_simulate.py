@@ -169,9 +169,11 @@ def simulate(
         sc = replace(sc, phases=pwm.phases)
     if switched:
         from loopcheck.switched import sideband_check, simulate_switched
+        from loopcheck.threads import small_matrix_kernels
 
         def run_model(Hi=None):
-            return simulate_switched(design, pwm, sc, Hi_V_per_A=Hi)
+            with small_matrix_kernels():  # block exponentials of small matrices: BLAS threads only cost here
+                return simulate_switched(design, pwm, sc, Hi_V_per_A=Hi)
     else:
         def run_model(Hi=None):
             return run(design, sc, Hi_V_per_A=Hi)
@@ -181,7 +183,11 @@ def simulate(
     if Hi_cmp is not None:
         w_c = run_model(Hi_cmp)
         rc_c = resonance_rate_check(design, sc, Hi_V_per_A=Hi_cmp)
-    sidebands = sideband_check(design, pwm, w, sc) if switched else None
+    if switched:
+        with small_matrix_kernels():
+            sidebands = sideband_check(design, pwm, w, sc)
+    else:
+        sidebands = None
 
     notes = list(w.notes)
     if Hi_cmp is not None and Hi_cmp == design.control.Hi_V_per_A:
