@@ -10,6 +10,7 @@ from . import margins as mg
 from .loop import Loop, build_loop
 from .model import Design, design_resonance_hz
 from .results import Analysis, Crossover, GainMargin, PhaseCrossing, SensitivityPeak
+from .threads import limited
 from .verdict import TOLERANCE, classify, count_on_circle, count_outside
 
 #: Radius offset of the Nyquist contour outside the unit circle.
@@ -42,6 +43,7 @@ def analyse(design: Design, tol: float = TOLERANCE) -> Analysis:
     return analyse_loop(design, build_loop(design), tol)
 
 
+@limited
 def analyse_loop(design: Design, loop: Loop, tol: float = TOLERANCE) -> Analysis:
     """Verdict and margins of ``loop``, a loop of ``design`` whose controller
     or damping gain may differ from the design's own (e.g. the controller

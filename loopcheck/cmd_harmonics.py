@@ -18,6 +18,9 @@ from loopcheck.cli_common import (
     write_figure,
 )
 
+#: Exit code of ``--fail-on-overmodulation`` when the modulator leaves its linear range.
+EXIT_OVERMODULATED = 3
+
 CAUTION = (
     "Design aid, not a compliance test: the limits apply at the point of common coupling and are "
     "verified by measurement; local codes and the utility's interconnection rules govern."
@@ -33,6 +36,11 @@ def harmonics(
     ] = None,
     top: Annotated[int, typer.Option("--top", min=1, max=200, help="Number of largest sidebands listed.")] = 8,
     json_output: Annotated[bool, typer.Option("--json", help="Print one JSON object instead of the text summary.")] = False,
+    fail_on_overmodulation: Annotated[
+        bool,
+        typer.Option("--fail-on-overmodulation",
+                     help=f"Exit with code {EXIT_OVERMODULATED} when the operating point over-modulates at any evaluated Lg."),
+    ] = False,
 ) -> None:
     """Grid-current sidebands around the switching frequency and its
     multiples (PWM Bessel expressions through the LCL filter) against the
@@ -41,7 +49,12 @@ def harmonics(
     a passive damping resistor (fundamental and ripple) beside the active
     (virtual-resistor) design.
 
-    Exit codes: 0 the check ran (whatever its outcome); 2 bad input.
+    Over-modulation (a modulation index beyond the linear range of the
+    [pwm] modulation, at the nominal Lg or anywhere over the Lg range) is a
+    finding printed with the result, not an input error.
+
+    Exit codes: 0 the check ran (whatever its outcome); 2 bad input;
+    3 over-modulation, only with --fail-on-overmodulation.
     """
     loaded = load_case(case)
     check_figure_output(output)
@@ -58,15 +71,12 @@ def harmonics(
     for msg in pwm_warn:
         warn(msg)
 
-    from loopcheck.harmonics import OvermodulationError, harmonic_check
+    from loopcheck.harmonics import harmonic_check
     from loopcheck.passive import compare_damping
 
     design = loaded.design
-    try:
-        check = harmonic_check(design, pwm, op, opts.max_group, opts.max_sideband, opts.lg_points)
-    except OvermodulationError as exc:
-        fail(f"{loaded.where('pwm')} dc_link: {exc}")
-    losses = compare_damping(design, op, pwm)
+    check = harmonic_check(design, pwm, op, opts.max_group, opts.max_sideband, opts.lg_points)
+    losses = compare_damping(design, op, pwm, opts.max_group, opts.max_sideband)
     # the sideband estimate presumes a stable current loop; say so when it is not
     from loopcheck.analysis import analyse
 
@@ -94,20 +104,30 @@ def harmonics(
             "damping_losses": losses,
             "files": files,
             "loop_verdict": loop.verdict,
+            "overmodulation": {
+                "nominal": check.overmodulated,
+                "Lg_H": list(check.overmodulated_Lg_H),
+                "linear_limit": check.linear_limit,
+                "modulation": check.modulation,
+                "findings": list(check.findings),
+            },
             "caution": CAUTION,
             "warnings": list(loaded.warnings) + list(pwm_warn) + ([loop_note] if loop_note else []),
         }))
+        _exit_for(check, fail_on_overmodulation)
         return
 
     w = check.worst
     lines = [
         f"harmonics: {design.name} ({loaded.path})",
-        f"  modulator: {pwm.scheme}, {pwm.update} update, fsw = {pwm.fsw_hz:,.0f} Hz, Vdc = {pwm.Vdc_V:.4g} V; "
-        f"modulation index M = {check.modulation_index:.3f}",
+        f"  modulator: {pwm.scheme}, {pwm.modulation} reference, {pwm.update} update, fsw = {pwm.fsw_hz:,.0f} Hz, "
+        f"Vdc = {pwm.Vdc_V:.4g} V; modulation index M = {check.modulation_index:.3f} "
+        f"(linear up to {check.linear_limit:.4f})",
         f"  operating point: {op.current_rms_A:.4g} A rms at {op.current_phase_deg:+.3g} deg to the grid voltage "
         f"({op.grid_peak_V:.4g} V peak); rated current {op.rated_current_rms_A:.4g} A rms",
         f"  grid inductance Lg = {check.Lg_H * 1e3:.4g} mH",
         *([f"  WARNING: {loop_note}"] if loop_note else []),
+        *([f"  FINDING: {check.findings[0]}"] + [f"    {t}" for t in check.findings[1:]] if check.findings else []),
         "",
         f"  {'sideband':<12}{'frequency':>12}{'order h':>10}{'converter':>12}{'|i2/vi|':>11}{'grid current':>14}"
         f"{'limit':>9}{'margin':>10}",
@@ -136,6 +156,7 @@ def harmonics(
         lines.append(
             f"  over Lg = {lo * 1e3:.4g} .. {hi * 1e3:.4g} mH ({len(check.lg_sweep)} values): smallest margin "
             f"{r.margin_db:+.1f} dB at Lg = {r.Lg_H * 1e3:.4g} mH ({r.frequency_hz:,.0f} Hz, {r.percent:.4g} %)"
+            + (" (over-modulated there: clipped reference, indicative)" if r.overmodulated else "")
         )
     lines += ["", "  damping resistor loss (per phase and total):",
               f"    {'variant':<62}{'zeta':>6}{'fund. [W]':>11}{'ripple [W]':>12}{'total [W]':>11}"]
@@ -152,3 +173,9 @@ def harmonics(
     lines += ["", f"  {CAUTION}"]
     lines += [f"  wrote {f}" for f in files]
     typer.echo("\n".join(lines))
+    _exit_for(check, fail_on_overmodulation)
+
+
+def _exit_for(check, fail_on_overmodulation: bool) -> None:
+    if fail_on_overmodulation and check.findings:
+        raise typer.Exit(EXIT_OVERMODULATED)

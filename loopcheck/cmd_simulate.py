@@ -171,9 +171,11 @@ def simulate(
         sc = replace(sc, phases=pwm.phases)
     if switched:
         from loopcheck.switched import sideband_check, simulate_switched
+        from loopcheck.threads import small_matrix_kernels
 
         def run_model(Hi=None):
-            return simulate_switched(design, pwm, sc, Hi_V_per_A=Hi)
+            with small_matrix_kernels():  # block exponentials of small matrices: BLAS threads only cost here
+                return simulate_switched(design, pwm, sc, Hi_V_per_A=Hi)
     else:
         def run_model(Hi=None):
             return run(design, sc, Hi_V_per_A=Hi)
@@ -183,7 +185,11 @@ def simulate(
     if Hi_cmp is not None:
         w_c = run_model(Hi_cmp)
         rc_c = resonance_rate_check(design, sc, Hi_V_per_A=Hi_cmp)
-    sidebands = sideband_check(design, pwm, w, sc) if switched else None
+    if switched:
+        with small_matrix_kernels():
+            sidebands = sideband_check(design, pwm, w, sc)
+    else:
+        sidebands = None
 
     notes = list(w.notes)
     if Hi_cmp is not None and Hi_cmp == design.control.Hi_V_per_A:
@@ -191,13 +197,18 @@ def simulate(
     if pwm is not None and not switched:
         import numpy as np
 
-        limit = pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0
+        limit = pwm.linear_limit * (pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0)
         peak = float(np.max(np.abs(w.vi_V)))
         if peak > limit:
             notes.append(
                 f"the converter voltage reaches {peak:.4g} V peak, beyond the linear range of the modulator "
                 f"({limit:.4g} V with Vdc = {pwm.Vdc_V:.4g} V); the averaged linear model ignores this saturation"
             )
+    if switched and pwm.modulation != "sine":
+        notes.append(
+            f"[pwm] modulation = {pwm.modulation!r}: the switched model compares sinusoidal leg references with the "
+            "carrier (no zero-sequence injection), so its ripple is that of sine-triangle PWM"
+        )
     files = []
     if output is not None:
         from loopcheck.sim_plot import waveform_figure

@@ -15,6 +15,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .threads import limited
+
 _PADE13 = (
     64764752532480000.0,
     32382376266240000.0,
@@ -34,12 +36,14 @@ _PADE13 = (
 _THETA13 = 5.371920351148152
 
 
+@limited
 def expm_batched(M: np.ndarray) -> np.ndarray:
     """Matrix exponential of a stack of square matrices ``M [..., n, n]``.
 
     Scaling and squaring with the [13/13] Pade approximant (Higham 2005), vectorised over the stack: one set of
     matrix products for all matrices that need the same number of
-    squarings."""
+    squarings. Runs with the BLAS limited to one thread
+    (:func:`loopcheck.threads.small_matrix_kernels`)."""
     M = np.asarray(M, dtype=float)
     shape = M.shape
     n = shape[-1]

@@ -31,6 +31,35 @@ with the leg fundamental M*Vdc/2. Schemes:
 Components of different (m, n) that fall on the same frequency are added in
 magnitude (an upper bound).
 
+Reference shapes (``PwmSpec.modulation``). The closed Bessel forms above
+hold for a sinusoidal reference (sine-triangle PWM) inside its linear range
+M <= 1. Three-phase converters can add a zero-sequence signal to the three
+leg references, which the isolated neutral removes from the phase
+voltages, and so extend the linear range by 2/sqrt(3) (M <= 1.1547):
+
+* ``third-harmonic``: leg reference M (cos y - cos(3y)/6) (the optimal
+  one-sixth third harmonic);
+* ``space-vector``: leg reference M (cos y - (max + min)/2) over the three
+  phase references, the carrier-based (min-max injection) form of
+  centred space-vector modulation with equal null-vector times [1].
+
+For these references, and for any reference beyond the linear range (the
+reference clipped at the carrier peaks: over-modulation), the sidebands are
+the same double-Fourier integrals evaluated numerically instead of in
+closed form: with the pulse half-width a(y) = pi (1 + r(y))/2 of the leg
+reference r(y) (clipped to [-1, 1]) and the periodic trapezoid rule over
+y in [-pi, pi) (``REFERENCE_POINTS`` points),
+
+* natural:  C_mn = Vdc/(4 pi^2) int e^{-jny} 2 sin(m a(y))/m dy
+* single:   C_mn = Vdc/(4 pi^2) int e^{-jny} 2 sin(q a(y))/q dy
+* double:   C_mn = Vdc/(4 pi^2) int e^{-jny} [1 - e^{-jqa} + e^{-jn pi f1/fsw}(e^{jqa} - 1)]/(jq) dy
+
+and |V_mn| = 2 |C_mn|. For r = M cos y these reduce to the Bessel forms
+(Jacobi-Anger expansion), which the tests confirm to rounding; for the
+other references they are checked against the FFT of ideal PWM waveforms.
+The zero-sequence parts (n a multiple of 3 and the injected baseband
+triplen harmonics) cancel in the phase voltage as before.
+
 Attenuation. The grid current of a sideband is the converter-voltage
 component times the admittance i2/vi of the continuous filter at that
 frequency (with Lg, R1, R2, Rg and any passive damping; vg = 0 there). The
@@ -46,9 +75,10 @@ References
 .. [1] D. G. Holmes and T. A. Lipo, "Pulse Width Modulation for Power
    Converters: Principles and Practice", IEEE Press / Wiley, 2003, ch. 3
    (naturally sampled, double Fourier series) and ch. 4 (regular sampled);
-   chapter numbers from memory. The three expressions above were checked
-   against the exact Fourier series of ideal PWM waveforms
-   (tests/test_harmonics.py).
+   chapter numbers from memory; the third-harmonic and space-vector
+   references and their linear range 2/sqrt(3) are treated there too
+   (from memory). The three expressions above were checked against the
+   exact Fourier series of ideal PWM waveforms (tests/test_harmonics.py).
 .. [2] M. Liserre, F. Blaabjerg and S. Hansen, "Design and Control of an
    LCL-Filter-Based Three-Phase Active Rectifier", IEEE Trans. Ind. Appl.,
    vol. 41, no. 5, pp. 1281-1291, 2005 (ripple attenuation of the LCL filter).
@@ -65,9 +95,20 @@ from scipy.special import jv
 from .limits import ABOVE_TABLE_LIMIT_PERCENT, TABLES, limit_percent, margin_db
 from .model import Design
 from .plant import OUTPUT_I2, design_plant
+from .threads import limited
 
 SCHEMES = ("three-phase", "half-bridge", "full-bridge-unipolar")
 UPDATES = ("single", "double", "natural")
+#: Reference shapes of the modulator (``[pwm] modulation``); the last two
+#: need the three-phase scheme (isolated neutral).
+MODULATIONS = ("sine", "third-harmonic", "space-vector")
+#: Linear range of the modulation index with zero-sequence injection [-]
+#: (Holmes and Lipo 2003, from memory): 2/sqrt(3).
+ZERO_SEQUENCE_LINEAR_LIMIT = 2.0 / math.sqrt(3.0)
+#: Points per fundamental period of the numerical double-Fourier integral
+#: [-]; the space-vector reference has kinks, so the trapezoid rule
+#: converges as 1/points^2: about 1e-7 Vdc at 4096 points.
+REFERENCE_POINTS = 4096
 #: Components below this fraction of Vdc are treated as absent [-] (the
 #: expressions give exact zeros that rounding turns into ~1e-17).
 ZERO_SIDEBAND = 1e-9
@@ -78,17 +119,27 @@ class PwmSpec:
     """Modulator: dc-link voltage ``Vdc_V`` [V], switching (carrier)
     frequency ``fsw_hz`` [Hz], ``scheme`` (:data:`SCHEMES`), ``update``
     (:data:`UPDATES`: "single" = one reference update per carrier period,
-    "double" = two, "natural" = analogue comparison)."""
+    "double" = two, "natural" = analogue comparison), ``modulation``
+    (:data:`MODULATIONS`: the reference shape; "third-harmonic" and
+    "space-vector" only with the three-phase scheme)."""
 
     Vdc_V: float
     fsw_hz: float
     scheme: str = "three-phase"
     update: str = "single"
+    modulation: str = "sine"
 
     @property
     def phases(self) -> int:
         """Number of phases of the converter [-]."""
         return 3 if self.scheme == "three-phase" else 1
+
+    @property
+    def linear_limit(self) -> float:
+        """Largest modulation index of the linear range [-]: 1 for a
+        sinusoidal reference, 2/sqrt(3) with third-harmonic or space-vector
+        (min-max) zero-sequence injection (Holmes and Lipo 2003, from memory)."""
+        return 1.0 if self.modulation == "sine" else ZERO_SEQUENCE_LINEAR_LIMIT
 
 
 @dataclass(frozen=True)
@@ -133,13 +184,69 @@ def leg_sideband_amplitude(m, n, M, Vdc_V, update: str, f1_over_fsw: float):
     return np.where(q > 0, amp, 0.0)
 
 
+def leg_reference(y, M, modulation: str = "sine"):
+    """Leg reference r(y) [-] (carrier peak = 1) of a leg whose fundamental
+    reference is M cos y, for the reference shapes of :data:`MODULATIONS`
+    (see the module docstring), clipped to [-1, 1] (over-modulation).
+    Broadcasts over y [rad] and M [-]."""
+    y = np.asarray(y, dtype=float)
+    M = np.asarray(M, dtype=float)
+    if modulation == "sine":
+        r = M * np.cos(y)
+    elif modulation == "third-harmonic":
+        r = M * (np.cos(y) - np.cos(3.0 * y) / 6.0)
+    elif modulation == "space-vector":
+        ph = np.cos(y[..., None] - np.array([0.0, 2.0 * np.pi / 3.0, -2.0 * np.pi / 3.0]))
+        r = M * (ph[..., 0] - 0.5 * (ph.max(axis=-1) + ph.min(axis=-1)))
+    else:
+        raise ValueError(f"unknown modulation {modulation!r}")
+    return np.clip(r, -1.0, 1.0)
+
+
+def leg_sideband_amplitude_numeric(m, n, M, Vdc_V, update: str, f1_over_fsw: float, modulation: str = "sine",
+                                   points: int = REFERENCE_POINTS):
+    """Peak amplitude [V] of component (m, n) of one phase leg for any
+    reference shape, from the double-Fourier integral evaluated numerically
+    (see the module docstring). m, n: 1-D arrays of equal length [-];
+    M: modulation index, scalar or array [...] (result [..., len(m)]).
+
+    References
+    ----------
+    .. [1] D. G. Holmes and T. A. Lipo, "Pulse Width Modulation for Power
+       Converters: Principles and Practice", IEEE Press / Wiley, 2003,
+       ch. 3 and 4 (double Fourier integral of natural and regular sampled
+       PWM; chapter numbers from memory).
+    """
+    m = np.atleast_1d(np.asarray(m, dtype=float))
+    n = np.atleast_1d(np.asarray(n, dtype=float))
+    M = np.asarray(M, dtype=float)
+    y = -np.pi + 2.0 * np.pi * np.arange(points) / points
+    q = m if update == "natural" else m + n * f1_over_fsw
+    E = np.exp(-1j * n[:, None] * y[None, :])  # [K, P]
+    out = np.empty(M.shape + (m.size,))
+    for idx in np.ndindex(M.shape):
+        a = 0.5 * np.pi * (1.0 + leg_reference(y, M[idx], modulation))  # [P]
+        qa = q[:, None] * a[None, :]
+        if update in ("natural", "single"):
+            integrand = 2.0 * np.sin(qa) / q[:, None]
+        else:
+            shift = np.exp(-1j * n * np.pi * f1_over_fsw)[:, None]
+            integrand = ((1.0 - np.exp(-1j * qa)) + shift * (np.exp(1j * qa) - 1.0)) / (1j * q[:, None])
+        C = Vdc_V / (4.0 * np.pi**2) * (2.0 * np.pi / points) * np.sum(E * integrand, axis=-1)
+        out[idx] = 2.0 * np.abs(C)
+    return out
+
+
 def converter_sidebands(pwm: PwmSpec, M, f1_hz: float, max_group: int = 4, max_sideband: int = 12):
     """Converter-voltage components of the per-phase converter voltage.
 
     Returns (frequency_hz [K], m [K], n [K], amplitude_V [..., K]) for the
     groups m = 1..max_group and sidebands |n| <= max_sideband that are not
     zero for the scheme (M may be an array: amplitudes get its shape in
-    front). Coinciding frequencies are merged (magnitudes added)."""
+    front). Coinciding frequencies are merged (magnitudes added). A sine
+    reference inside the linear range uses the closed Bessel forms; other
+    reference shapes, and any M beyond the linear range (clipped
+    reference), the numerical double-Fourier integral."""
     M = np.asarray(M, dtype=float)
     ms, ns = np.meshgrid(np.arange(1, max_group + 1), np.arange(-max_sideband, max_sideband + 1), indexing="ij")
     ms, ns = ms.ravel(), ns.ravel()
@@ -156,7 +263,11 @@ def converter_sidebands(pwm: PwmSpec, M, f1_hz: float, max_group: int = 4, max_s
     else:
         raise ValueError(f"unknown modulation scheme {pwm.scheme!r}")
     ms, ns, f = ms[keep], ns[keep], f[keep]
-    amp = factor * leg_sideband_amplitude(ms, ns, M[..., None], pwm.Vdc_V, pwm.update, f1_hz / pwm.fsw_hz)
+    eps = f1_hz / pwm.fsw_hz
+    if pwm.modulation == "sine" and np.all(M <= 1.0):
+        amp = factor * leg_sideband_amplitude(ms, ns, M[..., None], pwm.Vdc_V, pwm.update, eps)
+    else:
+        amp = factor * leg_sideband_amplitude_numeric(ms, ns, M, pwm.Vdc_V, pwm.update, eps, pwm.modulation)
     # drop the components that vanish identically (e.g. m + n even with natural sampling)
     present = np.max(amp.reshape(-1, amp.shape[-1]), axis=0) > ZERO_SIDEBAND * pwm.Vdc_V
     ms, ns, f, amp = ms[present], ns[present], f[present], amp[..., present]
@@ -238,7 +349,9 @@ class Sideband:
 class LgPoint:
     """Worst sideband at one grid inductance Lg_H [H]: its frequency [Hz],
     grid current [% of rated], limit [%], margin [dB], the modulation
-    index [-] and the rss distortion of all sidebands [% of rated]."""
+    index [-] and the rss distortion of all sidebands [% of rated];
+    overmodulated: the modulation index exceeds the modulator's linear
+    range there (the sidebands are then those of the clipped reference)."""
 
     Lg_H: float
     frequency_hz: float
@@ -247,6 +360,7 @@ class LgPoint:
     margin_db: float
     modulation_index: float
     total_percent: float
+    overmodulated: bool = False
 
 
 @dataclass(frozen=True)
@@ -260,7 +374,12 @@ class HarmonicCheck:
     covers h <= 50 only); complies: every sideband within its limit;
     lg_sweep: worst sideband over the grid-inductance range (empty when the
     design has none); worst_over_range: the LgPoint of smallest margin;
-    limit_tables: editions used; assumptions: plain-text list."""
+    limit_tables: editions used; assumptions: plain-text list;
+    modulation: reference shape of the modulator; linear_limit: largest
+    modulation index of its linear range [-]; overmodulated: the nominal
+    point needs more than that; overmodulated_Lg_H: the evaluated grid
+    inductances [H] (nominal and range) that need more; findings:
+    plain-text statements of the over-modulation (empty when none)."""
 
     pwm: PwmSpec
     op: OperatingPoint
@@ -275,15 +394,32 @@ class HarmonicCheck:
     worst_over_range: LgPoint | None
     limit_tables: tuple[str, ...]
     assumptions: tuple[str, ...]
+    modulation: str = "sine"
+    linear_limit: float = 1.0
+    overmodulated: bool = False
+    overmodulated_Lg_H: tuple[float, ...] = ()
+    findings: tuple[str, ...] = ()
 
 
 class OvermodulationError(ValueError):
-    """The operating point needs a modulation index above 1."""
+    """The operating point needs a modulation index beyond the linear range
+    (kept for callers; :func:`harmonic_check` reports over-modulation as a
+    finding instead of raising)."""
 
+
+MODULATION_ASSUMPTION = {
+    "sine": "carrier-based sine-triangle modulation (no dead time, no zero-sequence injection); sideband "
+    "amplitudes from the double-Fourier (Bessel) expressions of Holmes and Lipo (2003)",
+    "third-harmonic": "carrier-based modulation with one-sixth third-harmonic injection (no dead time); the closed "
+    "Bessel forms are for sine-triangle PWM only, so the sideband amplitudes are the double-Fourier integrals of "
+    "Holmes and Lipo (2003) evaluated numerically for this reference",
+    "space-vector": "carrier-based centred space-vector modulation (min-max zero-sequence injection, equal null "
+    "vectors; no dead time); the closed Bessel forms are for sine-triangle PWM only, so the sideband amplitudes are "
+    "the double-Fourier integrals of Holmes and Lipo (2003) evaluated numerically for this reference",
+}
 
 ASSUMPTIONS = (
-    "averaged sine-triangle modulation (no dead time, no third-harmonic injection); sideband "
-    "amplitudes from the double-Fourier (Bessel) expressions of Holmes and Lipo (2003)",
+    MODULATION_ASSUMPTION["sine"],
     "the currents are sampled synchronously with the carrier, so the current controller and the "
     "virtual resistor do not act on the switching sidebands; the sidebands are set by the filter, "
     "its losses, its passive damping and the grid inductance",
@@ -304,6 +440,7 @@ def _limits(orders):
     return lim, assumed
 
 
+@limited
 def harmonic_check(
     design: Design,
     pwm: PwmSpec,
@@ -317,8 +454,11 @@ def harmonic_check(
     :mod:`loopcheck.limits`), at the design's Lg and over ``Grid.Lg_range_H``
     (``lg_points`` values, linearly spaced, plus the nominal one).
 
-    Raises :class:`OvermodulationError` when the operating point needs
-    M > 1. See the module docstring for the model and its references."""
+    Over-modulation (a modulation index beyond ``pwm.linear_limit`` at the
+    nominal or any evaluated grid inductance) is reported in
+    ``overmodulated``, ``overmodulated_Lg_H`` and ``findings``, not raised;
+    the sidebands there are those of the clipped reference. See the module
+    docstring for the model and its references."""
     f1 = design.grid.f_hz
     Lg0 = design.grid.Lg_H
     rng = design.grid.Lg_range_H
@@ -327,13 +467,10 @@ def harmonic_check(
         Lgs = np.unique(np.concatenate([[Lg0], np.linspace(rng[0], rng[1], max(2, lg_points))]))
     Vi = converter_voltage_phasor(design, op, Lgs)
     Mi = modulation_index(pwm, np.abs(Vi))
-    if np.any(Mi > 1.0):
-        j = int(np.argmax(Mi))
-        raise OvermodulationError(
-            f"the operating point needs a modulation index of {Mi[j]:.3f} > 1 "
-            f"(converter voltage {abs(Vi[j]):.4g} V peak at Lg = {Lgs[j] * 1e3:.4g} mH) with Vdc = {pwm.Vdc_V:.4g} V; "
-            "raise the dc-link voltage or lower the current"
-        )
+    limit = pwm.linear_limit
+    over = Mi > limit
+    i0 = int(np.nonzero(Lgs == Lg0)[0][0])
+    findings = _overmodulation_findings(pwm, Lgs, Vi, Mi, over, i0)
     f, ms, ns, amp = converter_sidebands(pwm, Mi, f1, max_group, max_sideband)
     Y = np.abs(plant_response(design, f, Lgs)[:, 0, :])  # [Lg, K]
     I2 = amp * Y
@@ -344,8 +481,6 @@ def harmonic_check(
     with np.errstate(divide="ignore"):
         marg = 20.0 * np.log10(lim[None, :] / pct)
     total = np.sqrt(np.sum(pct**2, axis=-1))
-
-    i0 = int(np.nonzero(Lgs == Lg0)[0][0])
     sidebands = tuple(
         Sideband(
             m=int(ms[k]),
@@ -370,7 +505,8 @@ def harmonic_check(
         for i, Lg in enumerate(Lgs):
             k = int(np.argmin(marg[i]))
             pts.append(
-                LgPoint(float(Lg), float(f[k]), float(pct[i, k]), float(lim[k]), float(marg[i, k]), float(Mi[i]), float(total[i]))
+                LgPoint(float(Lg), float(f[k]), float(pct[i, k]), float(lim[k]), float(marg[i, k]), float(Mi[i]),
+                        float(total[i]), bool(over[i]))
             )
         sweep = tuple(pts)
         worst_rng = min(pts, key=lambda p: p.margin_db)
@@ -387,8 +523,49 @@ def harmonic_check(
         lg_sweep=sweep,
         worst_over_range=worst_rng,
         limit_tables=tuple(t.edition for t in TABLES),
-        assumptions=ASSUMPTIONS,
+        assumptions=(MODULATION_ASSUMPTION[pwm.modulation],) + ASSUMPTIONS[1:],
+        modulation=pwm.modulation,
+        linear_limit=float(limit),
+        overmodulated=bool(over[i0]),
+        overmodulated_Lg_H=tuple(float(x) for x in Lgs[over]),
+        findings=findings,
     )
+
+
+def _overmodulation_findings(pwm: PwmSpec, Lgs, Vi, Mi, over, i0) -> tuple[str, ...]:
+    """Plain-text findings on over-modulation (empty when none)."""
+    if not np.any(over):
+        return ()
+    limit = pwm.linear_limit
+    shape = {"sine": "sine-triangle", "third-harmonic": "third-harmonic injection",
+             "space-vector": "space-vector (min-max)"}[pwm.modulation]
+    j = int(np.argmax(Mi))
+    out = []
+    lgs = Lgs[over]
+    span = (f"Lg = {lgs.min() * 1e3:.4g} mH" if lgs.size == 1
+            else f"Lg = {lgs.min() * 1e3:.4g} .. {lgs.max() * 1e3:.4g} mH, {lgs.size} of {Lgs.size} values evaluated")
+    where = "at the nominal grid inductance" if over[i0] else "over part of the grid-inductance range"
+    nominal = "" if over[i0] else f"; the nominal point (M = {Mi[i0]:.3f}) is within the linear range"
+    out.append(
+        f"OVER-MODULATION {where} ({span}){nominal}: the operating point needs a modulation index up to {Mi[j]:.3f} "
+        f"(converter voltage {abs(Vi[j]):.4g} V peak at Lg = {Lgs[j] * 1e3:.4g} mH), beyond the linear range "
+        f"M <= {limit:.4f} of {shape} modulation with Vdc = {pwm.Vdc_V:.4g} V"
+    )
+    out.append(
+        "there the modulator clips: the converter cannot produce the fundamental voltage the operating point "
+        "needs (the grid current falls short and low-order harmonics appear, which this check does not compute); "
+        "the sidebands listed there are those of the clipped reference (indicative only)"
+    )
+    needed = float(Mi[j]) / limit * pwm.Vdc_V
+    remedy = f"raise the dc-link voltage to at least {needed:.4g} V or lower the current"
+    if pwm.modulation == "sine" and pwm.phases == 3:
+        M_ok = float(Mi[j]) <= ZERO_SEQUENCE_LINEAR_LIMIT
+        remedy += (
+            "; third-harmonic injection or space-vector modulation ([pwm] modulation) extends the linear range to "
+            f"M <= {ZERO_SEQUENCE_LINEAR_LIMIT:.4f}" + (", which covers this operating point" if M_ok else ", still short here")
+        )
+    out.append(remedy)
+    return tuple(out)
 
 
 def lossless_grid_admittance(L1_H, C_F, L2_H, frequency_hz):

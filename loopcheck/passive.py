@@ -26,8 +26,10 @@ passive variants of the same filter when the design has none:
   Dell'Aquila and Blaabjerg [1] (also used in [2]);
 * split-RC: the capacitance split into C/2 (plain) and C/2 in series with
   Rd (total shunt capacitance kept), Rd chosen to give the largest damping
-  ratio of the resonant pole pair of the continuous filter (a numerical
-  search over Rd; loopcheck's own choice, no published rule is implied).
+  ratio of the resonant pole pair of the continuous filter (a log-grid
+  scan over Rd refined by a bounded scalar optimisation to a relative Rd
+  accuracy of about 1e-7; loopcheck's own choice, no published rule is
+  implied).
 
 References
 ----------
@@ -58,6 +60,7 @@ from .harmonics import (
 )
 from .model import Design, PassiveDamping, design_resonance_hz
 from .plant import design_plant
+from .threads import limited
 
 
 @dataclass(frozen=True)
@@ -95,11 +98,17 @@ class DampingLoss:
 @dataclass(frozen=True)
 class DampingComparison:
     """Passive variants beside the active design. variants: the rows;
-    op: operating point used; notes: plain-text remarks."""
+    op: operating point used; notes: plain-text remarks; max_group,
+    max_sideband: the sidebands summed for the ripple loss (carrier groups
+    m = 1..max_group, |n| <= max_sideband) [-], the same set as the limit
+    check of :func:`loopcheck.harmonics.harmonic_check` when the caller
+    passes the same values."""
 
     variants: tuple[DampingLoss, ...]
     op: OperatingPoint
     notes: tuple[str, ...]
+    max_group: int = 4
+    max_sideband: int = 12
 
 
 def resistor_row(design: Design) -> np.ndarray | None:
@@ -195,55 +204,99 @@ def rule_series_resistor_ohm(design: Design) -> float:
     return 1.0 / (3.0 * 2.0 * math.pi * fr * design.filter.shunt_capacitance_F)
 
 
+#: Tolerance of the split-RC resistor search on ln(Rd) [-]: the optimum
+#: Rd is found to a relative accuracy of about this.
+SPLIT_RC_XTOL = 1e-7
+
+
+def split_rc_damping_ratios(design: Design, Rd_ohm, share: float = 0.5) -> np.ndarray:
+    """Damping ratio [-] of the resonant pole pair of the split-RC variant
+    of ``design`` (shunt capacitance split into (1-share)*C plain and
+    share*C in series with Rd) for each resistance in ``Rd_ohm`` [ohm]
+    (1-D array; vectorised eigenvalues)."""
+    from .plant import lcl_state_space
+
+    f = design.filter
+    C = f.shunt_capacitance_F
+    Rs = np.atleast_1d(np.asarray(Rd_ohm, dtype=float))
+    p = lcl_state_space(f.L1_H, (1 - share) * C, f.L2_H + design.grid.Lg_H, f.R1_ohm, f.R2_ohm + design.grid.Rg_ohm,
+                        "split-RC", Rs, share * C, 0.0)
+    ev = np.linalg.eigvals(p.A)
+    zeta = np.ones(Rs.size)
+    for i in range(Rs.size):
+        e = ev[i]
+        cx = e[np.abs(e.imag) > 1e-9 * np.abs(e).max()]
+        if cx.size:
+            q = cx[np.argmax(np.abs(cx.imag))]
+            zeta[i] = -q.real / abs(q)
+    return zeta
+
+
 def best_split_rc(design: Design, share: float = 0.5, points: int = 241) -> Design:
     """Split-RC variant: the shunt capacitance split into (1-share)*C plain
-    and share*C in series with Rd, Rd [ohm] chosen on a log grid (0.01 to
-    100 times sqrt(L1/C)) for the largest damping ratio of the resonant
-    pole pair (vectorised eigenvalues). Returns the variant design."""
+    and share*C in series with Rd, Rd [ohm] chosen for the largest damping
+    ratio of the resonant pole pair of the continuous filter.
+
+    The search: a log grid of ``points`` values from 0.01 to 100 times
+    sqrt(L1/C) brackets the maximum, then a bounded scalar optimisation
+    (Brent's method, scipy.optimize.minimize_scalar, bounded) on ln(Rd)
+    between the grid neighbours of the best grid point refines it to
+    ``SPLIT_RC_XTOL`` on ln(Rd) (relative Rd accuracy about 1e-7). Returns
+    the variant design."""
+    from scipy.optimize import minimize_scalar
+
     f = design.filter
     C = f.shunt_capacitance_F
     Z0 = math.sqrt(f.L1_H / C)
     Rs = Z0 * np.logspace(-2, 2, points)
-    from .plant import lcl_state_space
-
-    p = lcl_state_space(f.L1_H, (1 - share) * C, f.L2_H + design.grid.Lg_H, f.R1_ohm, f.R2_ohm + design.grid.Rg_ohm,
-                        "split-RC", Rs, share * C, 0.0)
-    ev = np.linalg.eigvals(p.A)
-    zeta = np.empty(points)
-    for i in range(points):
-        e = ev[i]
-        cx = e[np.abs(e.imag) > 1e-9 * np.abs(e).max()]
-        zeta[i] = 1.0 if cx.size == 0 else -cx[np.argmax(np.abs(cx.imag))].real / abs(cx[np.argmax(np.abs(cx.imag))])
-    Rd = float(Rs[int(np.argmax(zeta))])
+    zeta = split_rc_damping_ratios(design, Rs, share)
+    i = int(np.argmax(zeta))
+    Rd = float(Rs[i])
+    if 0 < i < points - 1:
+        res = minimize_scalar(lambda x: -float(split_rc_damping_ratios(design, [math.exp(x)], share)[0]),
+                              bounds=(math.log(Rs[i - 1]), math.log(Rs[i + 1])), method="bounded",
+                              options={"xatol": SPLIT_RC_XTOL})
+        if -res.fun >= zeta[i]:
+            Rd = float(math.exp(res.x))
     damping = PassiveDamping(kind="split-RC", Rd_ohm=Rd, Cd_F=share * C)
     return replace(design, filter=replace(f, C_F=(1 - share) * C, damping=damping))
 
 
-def compare_damping(design: Design, op: OperatingPoint, pwm: PwmSpec | None = None) -> DampingComparison:
+@limited
+def compare_damping(design: Design, op: OperatingPoint, pwm: PwmSpec | None = None,
+                    max_group: int = 4, max_sideband: int = 12) -> DampingComparison:
     """The design's damping beside the alternatives (see module docstring):
     for an actively damped design (no passive resistor) the series-R and
     split-RC variants of the same filter; for a passively damped design its
-    resistor loss and the undamped filter with the virtual resistor."""
+    resistor loss and the undamped filter with the virtual resistor. The
+    ripple loss sums the sidebands of carrier groups m = 1..``max_group``
+    and |n| <= ``max_sideband`` (pass the values of the limit check so that
+    both use one set)."""
+    sb = dict(max_group=max_group, max_sideband=max_sideband)
     rows = []
     notes = []
     kind = design.filter.damping.kind
     Hi = design.control.Hi_V_per_A
     if kind == "none":
-        rows.append(resistor_loss(design, op, pwm, label=f"active: virtual resistor Hi = {Hi:.4g} V/A"))
+        rows.append(resistor_loss(design, op, pwm, label=f"active: virtual resistor Hi = {Hi:.4g} V/A", **sb))
         Rd = rule_series_resistor_ohm(design)
         ser = replace(design, filter=replace(design.filter, damping=PassiveDamping(kind="series-R", Rd_ohm=Rd)),
                       control=replace(design.control, Hi_V_per_A=0.0))
-        rows.append(resistor_loss(ser, op, pwm, label=f"passive series-R, Rd = 1/(3 wr C) = {Rd:.4g} ohm"))
+        rows.append(resistor_loss(ser, op, pwm, label=f"passive series-R, Rd = 1/(3 wr C) = {Rd:.4g} ohm", **sb))
         spl = best_split_rc(replace(design, control=replace(design.control, Hi_V_per_A=0.0)))
         rows.append(resistor_loss(spl, op, pwm,
-                                  label=f"passive split-RC, C/2 + C/2 with Rd = {spl.filter.damping.Rd_ohm:.4g} ohm"))
+                                  label=f"passive split-RC, C/2 + C/2 with Rd = {spl.filter.damping.Rd_ohm:.4g} ohm", **sb))
     else:
-        rows.append(resistor_loss(design, op, pwm, label=f"design: passive {kind}, Rd = {design.filter.damping.Rd_ohm:.4g} ohm"))
+        rows.append(resistor_loss(design, op, pwm, label=f"design: passive {kind}, Rd = {design.filter.damping.Rd_ohm:.4g} ohm",
+                                  **sb))
         und = replace(design, filter=replace(design.filter, damping=PassiveDamping()))
-        rows.append(resistor_loss(und, op, pwm, label="active alternative: no resistor (choose and check Hi)"))
+        rows.append(resistor_loss(und, op, pwm, label="active alternative: no resistor (choose and check Hi)", **sb))
     if pwm is None:
         notes.append("no [pwm] table: ripple losses not computed (fundamental only)")
+    else:
+        notes.append(f"ripple loss summed over carrier groups m = 1..{max_group} and sidebands |n| <= {max_sideband} "
+                     "(the same sidebands as the limit check)")
     phases = pwm.phases if pwm is not None else 3
     notes.append(f"totals are for {phases} phase{'s' if phases > 1 else ''} (per-phase loss x {phases})")
     notes.append("inductor and capacitor losses are not included; the resonance damping ratio is of the filter alone")
-    return DampingComparison(tuple(rows), op, tuple(notes))
+    return DampingComparison(tuple(rows), op, tuple(notes), max_group, max_sideband)

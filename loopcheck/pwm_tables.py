@@ -11,6 +11,13 @@
     ``update``               ``"single"`` (one reference update per carrier
                              period, default), ``"double"`` (two) or
                              ``"natural"`` (analogue comparison)
+    ``modulation``           reference shape: ``"sine"`` (sine-triangle,
+                             default; linear up to M = 1),
+                             ``"third-harmonic"`` (one-sixth third-harmonic
+                             injection) or ``"space-vector"`` (min-max
+                             zero-sequence injection); the last two only
+                             with ``scheme = "three-phase"``, linear up to
+                             M = 2/sqrt(3)
 
 ``[harmonics]`` (all optional)
     ``rated_current``        rated current, rms per phase, e.g. ``"43 A"``;
@@ -36,7 +43,7 @@ from dataclasses import dataclass
 
 from loopcheck.casefile import CaseError, check_keys, read_choice, read_quantity
 
-PWM_KEYS = ("dc_link", "switching_frequency", "scheme", "update")
+PWM_KEYS = ("dc_link", "switching_frequency", "scheme", "update", "modulation")
 HARMONICS_KEYS = ("rated_current", "current", "current_phase_deg", "grid_peak", "max_carrier_group", "max_sideband", "lg_points")
 
 
@@ -71,7 +78,7 @@ def read_pwm(case, required: bool = True):
     """The :class:`loopcheck.harmonics.PwmSpec` of ``case`` and a list of
     warnings, or (None, []) when there is no ``[pwm]`` table and it is not
     ``required``."""
-    from loopcheck.harmonics import SCHEMES, UPDATES, PwmSpec
+    from loopcheck.harmonics import MODULATIONS, SCHEMES, UPDATES, PwmSpec
 
     t = case.tables.get("pwm")
     w = case.where("pwm")
@@ -86,6 +93,12 @@ def read_pwm(case, required: bool = True):
     Vdc = read_quantity(t, "dc_link", "voltage", w, positive=True)
     scheme = read_choice(t, "scheme", SCHEMES, w, "three-phase")
     update = read_choice(t, "update", UPDATES, w, "single")
+    modulation = read_choice(t, "modulation", MODULATIONS, w, "sine")
+    if modulation != "sine" and scheme != "three-phase":
+        raise CaseError(
+            f"{w} modulation: {modulation!r} needs scheme = \"three-phase\" (the injected zero-sequence signal "
+            f"cancels only at an isolated three-phase neutral); use \"sine\" with {scheme!r}"
+        )
     fs = case.design.sampling.fs_hz
     default_fsw = fs / 2.0 if update == "double" else fs
     fsw = read_quantity(t, "switching_frequency", "frequency", w, default_fsw, positive=True)
@@ -98,7 +111,7 @@ def read_pwm(case, required: bool = True):
         )
     if fsw < 10.0 * case.design.grid.f_hz:
         raise CaseError(f"{w} switching_frequency: {fsw:g} Hz is below ten times the fundamental; not a PWM carrier")
-    return PwmSpec(Vdc_V=Vdc, fsw_hz=fsw, scheme=scheme, update=update), warnings
+    return PwmSpec(Vdc_V=Vdc, fsw_hz=fsw, scheme=scheme, update=update, modulation=modulation), warnings
 
 
 def read_harmonics_options(case) -> HarmonicsOptions:

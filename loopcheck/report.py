@@ -869,6 +869,8 @@ def build_harmonics(ctx: ReportContext) -> Section:
                  f"Lg = {e(q(r.Lg_H, 'H'))} ({_num(r.frequency_hz, 6)} Hz, {_num(r.percent)} % of rated).</p>")
     body += "<p>Limits: " + "; ".join(e(t) for t in check.limit_tables) + ".</p>"
     body += "<ul class='assume'>" + "".join(f"<li>{e(a)}</li>" for a in check.assumptions) + "</ul>"
+    if getattr(check, "findings", ()):
+        body += "<div class='warn'><ul>" + "".join(f"<li>{e(m)}</li>" for m in check.findings) + "</ul></div>"
     if pwm_warn:
         body += "<div class='warn'><ul>" + "".join(f"<li>{e(m)}</li>" for m in pwm_warn) + "</ul></div>"
     body += (

@@ -60,6 +60,7 @@ from .loop import build_loop
 from .model import Design, design_resonance_hz
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, design_plant
 from .scenario import INJECTION_KINDS, Event, Scenario, default_scenario
+from .threads import limited
 
 #: Names of the fine-resolution outputs, in the order of ``_OUT_ROWS``.
 FINE_SIGNALS = ("i1_A", "vc_V", "i2_A", "ic_A", "vg_V", "vi_V")
@@ -84,7 +85,8 @@ class Waveforms:
     initial grid inductance [Hz]; events: (time_s, text) of each event as
     applied (time rounded to a sampling instant); tripped_at_s: time [s] at
     which a current exceeded ``trip_current_A`` and the run stopped, or
-    None; notes: remarks (e.g. no steady state found); model: "averaged"
+    None (the fine waveform and the sample arrays then end at that sample:
+    the last fine point is the trip instant); notes: remarks (e.g. no steady state found); model: "averaged"
     or a description of the switched modulator (:mod:`loopcheck.switched`).
     """
 
@@ -334,6 +336,7 @@ def _injection_peak(ev: Event, grid_peak: float) -> float:
     return 0.05 * grid_peak if grid_peak > 0 else 10.0
 
 
+@limited
 def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float | None = None) -> Waveforms:
     """Simulate ``design`` under ``scenario`` (default: :func:`loopcheck.scenario.default_scenario`).
 
@@ -497,6 +500,9 @@ def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float
         ifb[sel] = S_hist[sel] @ sg.Cfb
     fine = fine.reshape(k_end * N, 6)
     t_fine = (np.arange(k_end)[:, None] * Ts + np.arange(N)[None, :] * (Ts / N)).reshape(-1)
+    if tripped is not None:  # the waveform ends at the trip sample (its first fine point)
+        fine = fine[: (k_end - 1) * N + 1]
+        t_fine = t_fine[: (k_end - 1) * N + 1]
     if tripped is not None:
         notes.append(
             f"a current exceeded the trip level {trip:.4g} A at t = {tripped * 1e3:.4g} ms; "
@@ -527,6 +533,7 @@ def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float
     )
 
 
+@limited
 def steady_loop_state(design: Design, scenario: Scenario, Hi_V_per_A: float | None = None):
     """Loop states at t = 0 of the periodic steady state of the averaged
     model under the scenario's grid voltage (with harmonics) and reference
@@ -584,14 +591,18 @@ def write_csv(w: Waveforms, stream) -> None:
 
     Columns: time_s, i1_A, i2_A, ic_A, vc_V, vg_V, vi_V, u_V, iref_A (the
     last two are the sampled values held over the period). A header line
-    starting with '#' names the case, Ts and delay."""
+    starting with '#' names the case, Ts and delay; a run that tripped
+    ends at the trip instant, which a second '#' line states."""
     N = w.points_per_sample
-    u = np.repeat(w.u_V, N)
-    iref = np.repeat(w.iref_A, N)
+    u = np.repeat(w.u_V, N)[: w.time_s.size]
+    iref = np.repeat(w.iref_A, N)[: w.time_s.size]
     stream.write(
         f"# loopcheck simulation of {w.name or 'case'}: Ts = {w.Ts_s:.9g} s, delay = {w.delay:g} samples, "
         f"Hi = {w.Hi_V_per_A:.6g} V/A\n"
     )
+    if w.tripped_at_s is not None:
+        stream.write(f"# tripped: a current exceeded {w.trip_current_A:.6g} A at t = {w.tripped_at_s:.9g} s; "
+                     "the waveform ends there\n")
     stream.write("time_s,i1_A,i2_A,ic_A,vc_V,vg_V,vi_V,u_V,iref_A\n")
     cols = np.column_stack([w.time_s, w.i1_A, w.i2_A, w.ic_A, w.vc_V, w.vg_V, w.vi_V, u, iref])
     np.savetxt(stream, cols, delimiter=",", fmt="%.9g")
@@ -774,6 +785,7 @@ def _upper(p) -> complex:
     return complex(p.real, abs(p.imag))
 
 
+@limited
 def resonance_rate_check(
     design: Design,
     scenario: Scenario | None = None,
@@ -869,7 +881,7 @@ def resonance_rate_check(
         s_rate, s_f = pole_rate_per_s(sim_pole, Ts), pole_frequency_hz(sim_pole, Ts)
         r_err = abs(s_rate - p_rate) / abs(p_rate) if p_rate != 0 else None
         f_err = abs(s_f - p_f) / p_f if p_f > 0 else None
-    t0 = ev.time_s + length * Ts
+    t0 = (round(ev.time_s / Ts) + length) * Ts  # the excitation starts at the sampling instant the simulation uses
     return RateCheck(
         predicted_pole=pred,
         predicted_rate_per_s=p_rate,

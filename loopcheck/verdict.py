@@ -13,10 +13,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from .threads import limited
+
 #: Band around |z| = 1 treated as "on the circle" [dimensionless].
 TOLERANCE = 1e-9
 
 
+@limited
 def spectral_radius(A: np.ndarray) -> np.ndarray:
     """max |eig(A)| over the last two axes (batched)."""
     return np.abs(np.linalg.eigvals(A)).max(axis=-1)

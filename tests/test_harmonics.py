@@ -24,6 +24,7 @@ Design values are invented for the tests.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -31,7 +32,6 @@ from scipy import signal
 
 from loopcheck.harmonics import (
     OperatingPoint,
-    OvermodulationError,
     PwmSpec,
     converter_sidebands,
     converter_voltage_phasor,
@@ -200,11 +200,124 @@ def test_harmonic_check_worst_sideband_and_lg_range():
     assert r.lg_sweep[-1].percent < r.lg_sweep[0].percent
 
 
-def test_overmodulation_is_reported():
-    d = design()
-    pwm = PwmSpec(Vdc_V=500.0, fsw_hz=8e3)
-    with pytest.raises(OvermodulationError, match="modulation index"):
-        harmonic_check(d, pwm, operating_point(d, pwm))
+def _hand_modulation_index(Vdc, Lg, I_rms=12e3 / (math.sqrt(3) * 400), Vg=400 * math.sqrt(2 / 3)):
+    """Modulation index of the test filter at unity power factor from a hand
+    phasor calculation (series and shunt impedances, common practice)."""
+    w = 2 * math.pi * 50.0
+    I2 = math.sqrt(2) * I_rms
+    Vc = Vg + 1j * w * (0.8e-3 + Lg) * I2
+    vi = Vc + 1j * w * 1.5e-3 * (I2 + Vc * 1j * w * 15e-6)
+    return abs(vi) / (Vdc / 2)
+
+
+def test_overmodulation_is_a_finding_not_an_error():
+    """Issue 12 item 6: the nominal result comes back with the over-modulation
+    flagged; the flagged grid inductances are those where the hand phasor
+    calculation needs M beyond the linear range (1 for sine-triangle,
+    2/sqrt(3) with zero-sequence injection: Holmes and Lipo 2003, from memory)."""
+    d = design(rng=(0.0, 30e-3))
+    M_nom = _hand_modulation_index(720.0, 0.0)
+    assert M_nom < 1.0 < _hand_modulation_index(720.0, 30e-3)  # the weak end over-modulates
+    pwm = PwmSpec(Vdc_V=720.0, fsw_hz=8e3)
+    r = harmonic_check(d, pwm, operating_point(d, pwm), lg_points=11)
+    assert r.modulation_index == pytest.approx(M_nom, rel=1e-9)
+    assert not r.overmodulated and r.sidebands and r.linear_limit == 1.0
+    Lgs = [p.Lg_H for p in r.lg_sweep]
+    expect = [L for L in Lgs if _hand_modulation_index(720.0, L) > 1.0]
+    assert expect and list(r.overmodulated_Lg_H) == pytest.approx(expect)
+    assert [p.overmodulated for p in r.lg_sweep] == [L in expect for L in Lgs]
+    assert r.findings and "OVER-MODULATION over part of the grid-inductance range" in r.findings[0]
+    # space-vector modulation: linear up to 2/sqrt(3); this range needs less than that
+    assert _hand_modulation_index(720.0, 30e-3) < 2 / math.sqrt(3)
+    r2 = harmonic_check(d, PwmSpec(Vdc_V=720.0, fsw_hz=8e3, modulation="space-vector"), operating_point(d, pwm), lg_points=11)
+    assert r2.linear_limit == pytest.approx(2 / math.sqrt(3), rel=1e-15)
+    assert not r2.overmodulated and r2.overmodulated_Lg_H == () and r2.findings == ()
+    # over-modulated at the nominal point: still a result, flagged
+    low = PwmSpec(Vdc_V=500.0, fsw_hz=8e3)
+    r3 = harmonic_check(design(), low, operating_point(design(), low))
+    assert _hand_modulation_index(500.0, 0.0) > 1.0 and r3.overmodulated
+    assert "at the nominal grid inductance" in r3.findings[0] and r3.sidebands
+
+
+# ---------------------------------------------------------------------------
+# reference shapes: third-harmonic and space-vector (min-max) references, and
+# over-modulation (clipped reference), against the FFT of ideal PWM
+# ---------------------------------------------------------------------------
+
+
+def shaped_reference(y, M, modulation):
+    """Leg reference written here from the textbook definitions (Holmes and
+    Lipo 2003, from memory): sine; sine with one-sixth third harmonic (phase
+    chosen so that the peak falls by sqrt(3)/2); sine minus the mean of the
+    largest and smallest of the three phase references (min-max injection,
+    carrier-based centred space-vector modulation). Clipped at +-1."""
+    if modulation == "sine":
+        r = M * np.cos(y)
+    elif modulation == "third-harmonic":
+        r = M * (np.cos(y) - np.cos(3 * y) / 6)
+    else:
+        a, b, c = np.cos(y), np.cos(y - 2 * np.pi / 3), np.cos(y + 2 * np.pi / 3)
+        r = M * (a - (np.maximum(np.maximum(a, b), c) + np.minimum(np.minimum(a, b), c)) / 2)
+    return np.clip(r, -1.0, 1.0)
+
+
+def shaped_leg(M, mode, modulation, phase=0.3, shift=0.0):
+    """Ideal leg voltage (+-1/2, Vdc = 1) from the reference compared with the
+    triangle carrier, as :func:`ideal_leg`."""
+    t = np.arange(P) / P
+    carrier = 1.0 - 4.0 * np.abs(((t * RATIO) % 1.0) - 0.5)
+    if mode == "natural":
+        ts = t
+    elif mode == "single":
+        ts = np.floor(t * RATIO) / RATIO
+    else:
+        ts = np.floor(t * 2 * RATIO) / (2 * RATIO)
+    return np.where(shaped_reference(2 * np.pi * ts + phase + shift, M, modulation) > carrier, 0.5, -0.5)
+
+
+def test_peak_of_the_injected_references_is_sqrt3_over_2():
+    # the linear range 2/sqrt(3) follows from the reference peak sqrt(3)/2 at M = 1 (common practice)
+    from loopcheck.harmonics import leg_reference
+
+    y = np.linspace(-np.pi, np.pi, 200001)
+    for mod in ("third-harmonic", "space-vector"):
+        assert np.max(np.abs(leg_reference(y, 1.0, mod))) == pytest.approx(math.sqrt(3) / 2, abs=1e-9)
+        assert np.allclose(leg_reference(y, 1.0, mod), shaped_reference(y, 1.0, mod), atol=1e-15)
+
+
+@pytest.mark.parametrize("mode", ["natural", "single", "double"])
+def test_numeric_double_fourier_integral_reduces_to_bessel_forms(mode):
+    # for a sine reference the numerical integral must give the closed forms
+    # (Jacobi-Anger expansion) to rounding
+    from loopcheck.harmonics import leg_sideband_amplitude_numeric
+
+    m, n = np.meshgrid(np.arange(1, 5), np.arange(-12, 13), indexing="ij")
+    m, n = m.ravel(), n.ravel()
+    a = leg_sideband_amplitude_numeric(m, n, np.array([0.3, 0.95]), 1.0, mode, 0.01, "sine")
+    b = leg_sideband_amplitude(m, n, np.array([[0.3], [0.95]]), 1.0, mode, 0.01)
+    assert np.max(np.abs(a - b)) < 1e-12
+
+
+@pytest.mark.parametrize("mode", ["natural", "single", "double"])
+@pytest.mark.parametrize("modulation, M", [("third-harmonic", 0.9), ("third-harmonic", 1.15),
+                                            ("space-vector", 0.9), ("space-vector", 1.15), ("sine", 1.1)])
+def test_three_phase_sidebands_of_shaped_references_match_fft(mode, modulation, M):
+    """Phase voltage v_a - (v_a + v_b + v_c)/3 of ideal PWM with the shaped
+    references (and a clipped sine beyond M = 1) against converter_sidebands,
+    tolerance 1e-4 Vdc as above."""
+    legs = [shaped_leg(M, mode, modulation, shift=-k * 2 * np.pi / 3) for k in range(3)]
+    X = spectrum(legs[0] - sum(legs) / 3.0)
+    if modulation != "sine":
+        assert X[1] == pytest.approx(M / 2, abs=TOL)  # the injection leaves the fundamental M Vdc/2
+    pwm = PwmSpec(Vdc_V=1.0, fsw_hz=RATIO * 50.0, scheme="three-phase", update=mode, modulation=modulation)
+    f, m, n, amp = converter_sidebands(pwm, M, 50.0, max_group=4, max_sideband=12)
+    worst = max(abs(X[int(round(fk / 50.0))] - ak) for fk, ak in zip(f, amp))
+    assert worst < TOL
+    # and they differ from the sine-triangle closed forms by far more than the tolerance
+    if modulation != "sine":
+        fs_, _, _, sine = converter_sidebands(replace(pwm, modulation="sine"), min(M, 1.0), 50.0, 4, 12)
+        other = dict(zip(np.round(fs_), sine))
+        assert max(abs(other.get(round(fk), 0.0) - ak) for fk, ak in zip(f, amp)) > 10 * TOL
 
 
 # ---------------------------------------------------------------------------

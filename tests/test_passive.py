@@ -117,3 +117,134 @@ def test_active_design_has_no_resistor_loss_and_variants_follow_the_rules():
         other = base.filter.damping.__class__(kind="split-RC", Rd_ohm=base.filter.damping.Rd_ohm * k, Cd_F=C / 2)
         alt = Design(base.filter.__class__(L1_H=L1, C_F=C / 2, L2_H=L2, damping=other), base.grid, base.sampling, base.control)
         assert resonant_damping_ratio(alt) < z0
+
+
+# ---------------------------------------------------------------------------
+# issue 14: the ripple loss sums the same sidebands as the limit check, and
+# the split-RC resistor is the true damping optimum
+# ---------------------------------------------------------------------------
+
+CASE_30K = "cases/commercial-30kva-weak-grid.toml"
+
+
+def _case_with(extra: str):
+    from pathlib import Path
+
+    from loopcheck.casefile import case_from_string
+
+    root = Path(__file__).resolve().parent.parent
+    return case_from_string((root / CASE_30K).read_text() + extra, CASE_30K)
+
+
+def _independent_ripple_W(kind, Rd, Cd, max_group, max_sideband):
+    """Ripple loss of the damping resistor of the 30 kVA demo filter (values
+    typed in from the case file), built from complex impedances (Kirchhoff,
+    common practice) and the regular-sampled (single update) sideband
+    expression of Holmes and Lipo (2003, from memory) evaluated with
+    scipy.special.jv: |V_mn| = (2 Vdc/(q pi)) |J_n(q M pi/2) sin((q + n) pi/2)|,
+    q = m + n f1/fsw, three-phase: n a multiple of 3 cancels."""
+    from scipy.special import jv
+
+    L1_, C_, L2_, R1_, R2_ = 1.5e-3, 33e-6, 0.75e-3, 0.020, 0.010
+    f1, S, V, scr, Vdc, fsw = 50.0, 30e3, 400.0, 10.0, 750.0, 10e3
+    Lg = V**2 / (2 * math.pi * f1 * scr * S)
+
+    def branch(w):
+        if kind == "series-R":
+            Zsh = Rd + 1 / (1j * w * C_)
+            return Zsh, lambda Vs: Vs / Zsh
+        zc = 1 / (1j * w * (C_ - Cd))
+        zd = Rd + 1 / (1j * w * Cd)
+        return 1 / (1 / zc + 1 / zd), lambda Vs: Vs / zd
+
+    # fundamental: rated current in phase with the grid voltage
+    w1 = 2 * math.pi * f1
+    I2 = math.sqrt(2) * S / (math.sqrt(3) * V)
+    Vg = V * math.sqrt(2 / 3)
+    Z2 = R2_ + 1j * w1 * (L2_ + Lg)
+    Vsh = Vg + Z2 * I2
+    Zsh, _ = branch(w1)
+    vi = Vsh + (R1_ + 1j * w1 * L1_) * (I2 + Vsh / Zsh)
+    M = abs(vi) / (Vdc / 2)
+    P, freqs = 0.0, []
+    for m in range(1, max_group + 1):
+        for n in range(-max_sideband, max_sideband + 1):
+            if n % 3 == 0:
+                continue
+            q = m + n * f1 / fsw
+            amp = abs(2 * Vdc / (q * math.pi) * jv(n, q * M * math.pi / 2) * math.sin((q + n) * math.pi / 2))
+            w = 2 * math.pi * (m * fsw + n * f1)
+            freqs.append(m * fsw + n * f1)
+            Zsh, i_r = branch(w)
+            z2 = R2_ + 1j * w * (L2_ + Lg)
+            zp = Zsh * z2 / (Zsh + z2)
+            I1 = amp / (R1_ + 1j * w * L1_ + zp)
+            P += Rd * abs(i_r(I1 * zp)) ** 2 / 2
+    assert len(set(freqs)) == len(freqs)  # no coinciding sidebands to merge
+    return P
+
+
+@pytest.mark.parametrize("groups, sidebands", [(4, 12), (1, 3), (2, 7)])
+def test_ripple_loss_uses_the_sidebands_of_the_limit_check(groups, sidebands):
+    """Fails before issue 14: the losses always summed m <= 4, |n| <= 12."""
+    from loopcheck.harmonics import harmonic_check
+    from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
+
+    case = _case_with(f"\n[harmonics]\nmax_carrier_group = {groups}\nmax_sideband = {sidebands}\n")
+    pwm, _ = read_pwm(case)
+    opts = read_harmonics_options(case)
+    op = operating_point_of(case, pwm, opts)
+    chk = harmonic_check(case.design, pwm, op, opts.max_group, opts.max_sideband, opts.lg_points)
+    assert max(s.m for s in chk.sidebands) <= groups and max(abs(s.n) for s in chk.sidebands) <= sidebands
+    cmp_ = compare_damping(case.design, op, pwm, opts.max_group, opts.max_sideband)
+    assert (cmp_.max_group, cmp_.max_sideband) == (groups, sidebands)
+    assert any(f"m = 1..{groups} and sidebands |n| <= {sidebands}" in n for n in cmp_.notes)
+    _, series, split = cmp_.variants
+    assert series.ripple_W == pytest.approx(_independent_ripple_W("series-R", series.Rd_ohm, 0.0, groups, sidebands), rel=1e-9)
+    assert split.ripple_W == pytest.approx(
+        _independent_ripple_W("split-RC", split.Rd_ohm, split.Cd_F, groups, sidebands), rel=1e-9
+    )
+
+
+def _split_rc_zeta_scan(Rds):
+    """Damping ratio of the resonant pair of the split-RC variant of the 30 kVA
+    demo filter for each Rd, from the eigenvalues (numpy.linalg.eigvals) of a
+    state matrix written here from the circuit (states i1, v_c1 across the
+    plain C/2, v_d across the damped C/2, i2; common practice)."""
+    L1_, C_, L2_, R1_, R2_ = 1.5e-3, 33e-6, 0.75e-3, 0.020, 0.010
+    Lg = 400.0**2 / (2 * math.pi * 50.0 * 10.0 * 30e3)
+    L2t, Ca, Cb = L2_ + Lg, C_ / 2, C_ / 2
+    out = np.empty(len(Rds))
+    for i, Rd in enumerate(Rds):
+        # shunt node voltage v_c1; damped branch current (v_c1 - v_d)/Rd
+        A = np.array([
+            [-R1_ / L1_, -1 / L1_, 0.0, 0.0],
+            [1 / Ca, -1 / (Rd * Ca), 1 / (Rd * Ca), -1 / Ca],
+            [0.0, 1 / (Rd * Cb), -1 / (Rd * Cb), 0.0],
+            [0.0, 1 / L2t, 0.0, -R2_ / L2t],
+        ])
+        ev = np.linalg.eigvals(A)
+        p = ev[np.argmax(ev.imag)]
+        out[i] = -p.real / abs(p)
+    return out
+
+
+def test_split_rc_resistor_is_the_damping_optimum_of_a_dense_scan():
+    """Fails before issue 14: the log-grid pick fell 0.2-2 % short of the
+    maximum (12.458 ohm against about 12.62 ohm here)."""
+    case = _case_with("")
+    spl = best_split_rc(replace_hi0(case.design))
+    Rd = spl.filter.damping.Rd_ohm
+    Rs = np.linspace(11.0, 14.5, 35001)  # 1e-4 ohm steps around the optimum
+    z = _split_rc_zeta_scan(Rs)
+    k = int(np.argmax(z))
+    assert 0 < k < Rs.size - 1  # interior maximum
+    assert Rd == pytest.approx(Rs[k], abs=2e-4)
+    assert float(_split_rc_zeta_scan([Rd])[0]) >= z[k] - 1e-12
+    assert resonant_damping_ratio(spl) == pytest.approx(z[k], abs=1e-9)
+
+
+def replace_hi0(d):
+    from dataclasses import replace
+
+    return replace(d, control=replace(d.control, Hi_V_per_A=0.0))

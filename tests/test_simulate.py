@@ -328,3 +328,47 @@ def test_unstable_loop_trips_and_stops():
     w = simulate(d, Scenario(duration_s=0.05, events=(Event(0.005, "voltage-pulse", peak_V=20.0),)))
     assert w.tripped_at_s is not None and w.tripped_at_s < 0.05
     assert w.sample_time_s[-1] == pytest.approx(w.tripped_at_s)
+
+
+def test_tripped_waveform_and_csv_end_at_the_trip_sample():
+    """Fails before issue 14: the fine waveform (and the CSV) held one more
+    sampling period after the trip sample. The trip level is checked here
+    on the waveform itself: the last point exceeds it, the sample before
+    does not (common practice for an overcurrent trip)."""
+    import io
+
+    from loopcheck.simulate import write_csv
+
+    d = make_design(Hi=0.0)
+    w = simulate(d, Scenario(duration_s=0.05, events=(Event(0.005, "voltage-pulse", peak_V=20.0),)))
+    assert w.tripped_at_s is not None
+    assert w.time_s[-1] == pytest.approx(w.tripped_at_s, abs=1e-12)
+    peak = np.maximum(np.abs(w.i1_A), np.abs(w.i2_A))
+    N = w.points_per_sample
+    assert peak[-1] > w.trip_current_A and peak[-1 - N] <= w.trip_current_A
+    buf = io.StringIO()
+    write_csv(w, buf)
+    lines = buf.getvalue().splitlines()
+    assert lines[1].startswith("# tripped:")
+    rows = np.loadtxt(lines[3:], delimiter=",")
+    assert rows.shape[0] == w.time_s.size and rows[-1, 0] == pytest.approx(w.tripped_at_s, abs=1e-12)
+
+
+def test_rate_check_window_starts_where_the_rounded_pulse_ends():
+    """Fails before issue 14: the fit window used the event time before it
+    was rounded to the sampling instant. The pulse start is read here from
+    the simulated converter voltage of a run from rest (zero until the
+    pulse arrives), independent of the events list."""
+    d = make_design(Hi=10.0)
+    Ts = d.sampling.Ts_s
+    t_ev = 0.02004  # 0.64 Ts after the sampling instant 20.0 ms (fs = 16 kHz: Ts = 62.5 us)
+    width = 2 * Ts
+    sc = Scenario(duration_s=0.03, start="rest", grid_peak_V=0.0, reference_peak_A=0.0,
+                  events=(Event(t_ev, "voltage-pulse", peak_V=15.0, width_s=width),))
+    w = simulate(d, sc)
+    start = w.time_s[np.nonzero(w.vi_V != 0.0)[0][0]]
+    assert abs(start - t_ev) > 0.1 * Ts  # the rounding matters for this case
+    assert w.events[0][0] == pytest.approx(start, abs=1e-12)
+    rc = resonance_rate_check(d, sc)
+    assert rc.window_s[0] == pytest.approx(start + width, abs=1e-12)
+    assert rc.window_s[1] - rc.window_s[0] == pytest.approx(rc.samples * Ts, abs=1e-12)

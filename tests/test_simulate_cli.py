@@ -224,8 +224,36 @@ def test_harmonics_warns_when_the_loop_is_unstable(tmp_path):
 def test_harmonics_errors(tmp_path):
     r = invoke("harmonics", write(tmp_path, extra=""))
     assert r.exit_code == 2 and "[pwm]: missing table" in r.stderr
-    r = invoke("harmonics", write(tmp_path, extra='[pwm]\ndc_link = "400 V"', name="low.toml"))
-    assert r.exit_code == 2 and "[pwm] dc_link" in r.stderr and "modulation index" in r.stderr
+    r = invoke("harmonics", write(tmp_path, extra='[pwm]\ndc_link = "700 V"\nscheme = "half-bridge"\n'
+                                            'modulation = "space-vector"', name="m.toml"))
+    assert r.exit_code == 2 and "[pwm] modulation" in r.stderr and "three-phase" in r.stderr
+    r = invoke("harmonics", write(tmp_path, extra='[pwm]\ndc_link = "700 V"\nmodulation = "svpwm"', name="m2.toml"))
+    assert r.exit_code == 2 and "[pwm] modulation" in r.stderr
+
+
+def test_harmonics_overmodulation_is_a_finding(tmp_path):
+    """Issue 12 item 6: over-modulation is reported with the result (exit 0),
+    or exit 3 with --fail-on-overmodulation; the modulation index is checked
+    against a hand phasor calculation of the converter voltage (series and
+    shunt impedances, common practice)."""
+    low = write(tmp_path, extra='[pwm]\ndc_link = "400 V"', name="low.toml")
+    w = 2 * math.pi * 50.0
+    I2 = math.sqrt(2) * 12e3 / (math.sqrt(3) * 400)
+    Vc = 400 * math.sqrt(2 / 3) + 1j * w * 0.8e-3 * I2  # nominal Lg = 0 in this case
+    M = abs(Vc + 1j * w * 1.5e-3 * (I2 + 1j * w * 15e-6 * Vc)) / 200.0
+    assert M > 1.0
+    r = invoke("harmonics", low)
+    assert r.exit_code == 0, r.stderr
+    assert "FINDING: OVER-MODULATION at the nominal grid inductance" in r.stdout
+    assert f"M = {M:.3f}" in r.stdout and "worst sideband" in r.stdout
+    rec = json.loads(invoke("harmonics", low, "--json").stdout)
+    assert rec["overmodulation"]["nominal"] is True and rec["overmodulation"]["findings"]
+    assert rec["harmonics"]["modulation_index"] == pytest.approx(M, rel=1e-9)
+    assert invoke("harmonics", low, "--fail-on-overmodulation").exit_code == 3
+    ok = write(tmp_path, extra='[pwm]\ndc_link = "700 V"', name="ok.toml")
+    r = invoke("harmonics", ok, "--fail-on-overmodulation")
+    assert r.exit_code == 0 and "FINDING" not in r.stdout
+    assert json.loads(invoke("harmonics", ok, "--json").stdout)["overmodulation"]["findings"] == []
     r = invoke("harmonics", write(tmp_path, extra='[pwm]\ndc_link = "700 V"\nscheme = "h-bridge"', name="s.toml"))
     assert r.exit_code == 2 and "[pwm] scheme" in r.stderr
 
