@@ -9,6 +9,7 @@ from typing import Annotated, Optional
 import typer
 
 from loopcheck.cli_common import (
+    case_tolerance,
     check_figure_output,
     fail,
     json_line,
@@ -80,13 +81,13 @@ def harmonics(
     # the sideband estimate presumes a stable current loop; say so when it is not
     from loopcheck.analysis import analyse
 
+    from loopcheck.findings import unstable_loop_note
+
     loop = analyse(design)
-    loop_note = None
-    if not loop.stable:
-        loop_note = (
-            f"the current loop of this design is {loop.verdict.upper()} (spectral radius {loop.spectral_radius:.6f}, "
-            "closed-loop eigenvalues): the sideband estimate assumes a stable loop and means nothing until that is fixed"
-        )
+    loop_note = unstable_loop_note(loop)
+    from loopcheck.range_verdict import case_verdict_line, headline, range_verdict
+
+    rv = range_verdict(design, case_tolerance(loaded))
 
     files = []
     if output is not None:
@@ -104,6 +105,8 @@ def harmonics(
             "damping_losses": losses,
             "files": files,
             "loop_verdict": loop.verdict,
+            "headline": headline(rv),
+            "range_verdict": rv.to_dict(),
             "overmodulation": {
                 "nominal": check.overmodulated,
                 "Lg_H": list(check.overmodulated_Lg_H),
@@ -120,6 +123,7 @@ def harmonics(
     w = check.worst
     lines = [
         f"harmonics: {design.name} ({loaded.path})",
+        *([case_verdict_line(rv)] if rv.declared else []),
         f"  modulator: {pwm.scheme}, {pwm.modulation} reference, {pwm.update} update, fsw = {pwm.fsw_hz:,.0f} Hz, "
         f"Vdc = {pwm.Vdc_V:.4g} V; modulation index M = {check.modulation_index:.3f} "
         f"(linear up to {check.linear_limit:.4f})",
@@ -141,12 +145,13 @@ def harmonics(
             f"  {f'({s.m}, {s.n:+d})':<12}{s.frequency_hz:>12,.0f}{s.order:>10.1f}{s.converter_V:>12.4g}"
             f"{s.admittance_S * 1e3:>11.4g}{s.percent:>14.4g}{lim:>9}{s.margin_db:>+10.1f}{mark}"
         )
-    verdict = "within" if check.complies else "ABOVE"
+    verdict = ("no verdict on the limits while the loop is not stable" if loop_note
+               else "within the limits" if check.complies else "ABOVE the limits")
     lines += [
         "  (* worst sideband; 'a': limit from loopcheck's above-table assumption, see below)",
         "",
         f"  worst sideband: {w.frequency_hz:,.0f} Hz (h = {w.order:.1f}), {w.percent:.4g} % of rated current, "
-        f"limit {w.limit_percent:.3g} %, margin {w.margin_db:+.1f} dB -> {verdict} the limits",
+        f"limit {w.limit_percent:.3g} %, margin {w.margin_db:+.1f} dB -> {verdict}",
         f"  all sidebands together: {check.total_percent:.4g} % of rated current (rss; the standards' 5 % TDD/TRD "
         "covers h <= 50 only)",
     ]

@@ -103,7 +103,7 @@ def map_command(
             atomic_write_text(csv_path, csv_text(smap))
         except OSError as exc:
             write_failure("--csv", csv_path, exc)
-    from loopcheck.range_verdict import headline, range_verdict
+    from loopcheck.range_verdict import case_verdict_line, headline, range_verdict
 
     rv = range_verdict(design, case_tolerance(loaded))
     if json_output:
@@ -111,9 +111,10 @@ def map_command(
                               "range_verdict": rv.to_dict()}))
     else:
         text = summary_text(smap, loaded.path, output, csv_path)
-        if rv.declared:  # the case's own verdict over what it declares, under the title
+        line = case_verdict_line(rv)  # the case's own verdict over what it declares, under the title
+        if line:
             first, _, rest = text.partition("\n")
-            text = f"{first}\n  case verdict: {headline(rv)}\n{rest}"
+            text = f"{first}\n{line}\n{rest}"
         typer.echo(text)
 
 

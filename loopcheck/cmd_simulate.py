@@ -9,6 +9,7 @@ from typing import Annotated, Optional
 import typer
 
 from loopcheck.cli_common import (
+    case_tolerance,
     check_figure_output,
     check_simulation_size,
     atomic_path,
@@ -197,13 +198,11 @@ def simulate(
     if pwm is not None and not switched:
         import numpy as np
 
-        limit = pwm.linear_limit * (pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0)
-        peak = float(np.max(np.abs(w.vi_V)))
-        if peak > limit:
-            notes.append(
-                f"the converter voltage reaches {peak:.4g} V peak, beyond the linear range of the modulator "
-                f"({limit:.4g} V with Vdc = {pwm.Vdc_V:.4g} V); the averaged linear model ignores this saturation"
-            )
+        from loopcheck.findings import saturation_note
+
+        note = saturation_note(float(np.max(np.abs(w.vi_V))), pwm)
+        if note:
+            notes.append(note)
     if switched and pwm.modulation != "sine":
         notes.append(
             f"[pwm] modulation = {pwm.modulation!r}: the switched model compares sinusoidal leg references with the "
@@ -231,6 +230,9 @@ def simulate(
 
     verdict = classify(abs(rc.dominant_pole))
     verdict_c = classify(abs(rc_c.dominant_pole)) if rc_c is not None else None
+    from loopcheck.range_verdict import case_verdict_line, headline, range_verdict
+
+    rv = range_verdict(design, case_tolerance(loaded))
     if json_output:
         record = {
             "case": loaded.path,
@@ -247,6 +249,8 @@ def simulate(
             "notes": notes + list(pwm_warn),
             "files": files,
             "warnings": list(loaded.warnings),
+            "headline": headline(rv),
+            "range_verdict": rv.to_dict(),
         }
         if rc_c is not None:
             record["comparison"] = {"verdict": verdict_c, "rate_check": rc_c, "tripped_at_s": w_c.tripped_at_s}
@@ -254,6 +258,7 @@ def simulate(
         return
     out = [
         f"simulate: {design.name} ({loaded.path})",
+        *([case_verdict_line(rv)] if rv.declared else []),
         f"  run: {sc.duration_s * 1e3:g} ms, Ts = {w.Ts_s * 1e6:.4g} us, computation delay {w.delay:g} Ts, "
         f"{w.points_per_sample} points per sample (exact between samples), start: {sc.start}",
         f"  model: {'averaged modulator' if w.model == 'averaged' else w.model}"

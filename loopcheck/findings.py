@@ -22,8 +22,12 @@ def unstable_loop_note(analysis) -> str | None:
 def modulator_limit_V(pwm) -> float:
     """Peak converter voltage of the modulator's linear range [V]: Vdc for a
     unipolar full bridge, Vdc/2 per phase leg otherwise (sine-triangle
-    carrier PWM; common practice)."""
-    return pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0
+    carrier PWM; common practice), times the modulation's linear-range
+    factor (2/sqrt(3) for third-harmonic injection or space-vector
+    modulation; Holmes & Lipo, "Pulse Width Modulation for Power
+    Converters", IEEE Press/Wiley, 2003, from memory)."""
+    base = pwm.Vdc_V if pwm.scheme == "full-bridge-unipolar" else pwm.Vdc_V / 2.0
+    return getattr(pwm, "linear_limit", 1.0) * base
 
 
 def saturation_note(vi_peak_V: float, pwm) -> str | None:

@@ -152,3 +152,9 @@ def headline(rv: RangeVerdict) -> str:
         return nominal
     overall = "STABLE over everything the case declares" if rv.stable_everywhere else "NOT STABLE over what the case declares"
     return f"{overall}: {nominal}, {rest}"
+
+
+def case_verdict_line(rv: RangeVerdict) -> str | None:
+    """The line commands print under their title when the case declares a
+    range or tolerances (``"  case verdict: ..."``), else None."""
+    return f"  case verdict: {headline(rv)}" if rv.declared else None

@@ -118,3 +118,12 @@ def test_map_states_the_case_verdict_over_its_range():
     assert r.stdout.splitlines()[1].startswith("  case verdict: NOT STABLE")
     r = CliRunner().invoke(app, ["map", str(BENCH), "--x-points", "10", "--y-points", "10", "--quiet", "--json"], env=ENV)
     assert json.loads(r.stdout)["range_verdict"]["stable_everywhere"] is False
+
+
+@pytest.mark.parametrize("command", ["simulate", "harmonics"])
+def test_simulate_and_harmonics_state_the_case_verdict(command):
+    r = CliRunner().invoke(app, [command, str(BENCH)], env=ENV)
+    assert r.exit_code == 0, r.stderr
+    assert r.stdout.splitlines()[1].startswith("  case verdict: NOT STABLE")
+    rec = json.loads(CliRunner().invoke(app, [command, str(BENCH), "--json"], env=ENV).stdout)
+    assert rec["range_verdict"]["stable_everywhere"] is False and rec["headline"].startswith("NOT STABLE")

@@ -57,3 +57,9 @@ def test_waveform_section_carries_the_saturation_note(report_html):
     sec = " ".join(_section(report_html, "waveforms").split())
     for n in notes:
         assert n in sec
+
+
+def test_harmonics_command_gives_no_limit_verdict_for_an_unstable_loop():
+    out = CliRunner().invoke(app, ["harmonics", str(CASE)], env=ENV).stdout
+    worst = next(ln for ln in out.splitlines() if ln.strip().startswith("worst sideband:"))
+    assert "within the limits" not in worst and "no verdict" in worst
