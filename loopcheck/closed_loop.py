@@ -114,15 +114,49 @@ def tracking_bandwidth_hz(loop, fs_hz: float, n_points: int = 4000) -> float | N
 
 
 @dataclass(frozen=True)
+class Tracking:
+    """Steady-state tracking of a sinusoidal reference at ``frequency_hz``
+    [Hz]: T = L/(1+L) there; gain |T| [-]; phase_deg: angle of T [deg]
+    (negative: the current lags its reference); error: |1 - T| [-], the
+    amplitude of the tracking error relative to the reference amplitude."""
+
+    frequency_hz: float
+    gain: float
+    phase_deg: float
+    error: float
+
+    def to_dict(self) -> dict:
+        return {"frequency_hz": self.frequency_hz, "gain": self.gain, "phase_deg": self.phase_deg,
+                "error": self.error}
+
+
+def tracking_at(loop, fs_hz: float, f_hz: float) -> Tracking:
+    """:class:`Tracking` of the closed loop at ``f_hz`` [Hz] from the
+    factored loop gain (``loop``: a :class:`loopcheck.loop.Loop`). An
+    ideal resonator tuned there makes |L| infinite: T = 1, no error."""
+    z = np.exp(2j * np.pi * np.array([f_hz]) / fs_hz)
+    with np.errstate(all="ignore"):
+        L = complex(loop.loop_response(z)[0])
+    if not np.isfinite(L) or abs(L) > 1e15:
+        T = 1.0 + 0j
+    else:
+        T = L / (1.0 + L)
+    return Tracking(float(f_hz), abs(T), math.degrees(math.atan2(T.imag, T.real)), abs(1.0 - T))
+
+
+@dataclass(frozen=True)
 class ClosedLoopSummary:
-    """Bandwidth [Hz] (None when undefined or the loop is not stable) and
-    the dominant poles (:class:`ClosedLoopPole`, slowest first)."""
+    """Bandwidth [Hz] (None when undefined or the loop is not stable), the
+    dominant poles (:class:`ClosedLoopPole`, slowest first) and the tracking
+    at the grid frequency (:class:`Tracking`, None when not stable)."""
 
     bandwidth_hz: float | None
     poles: tuple[ClosedLoopPole, ...]
+    tracking: Tracking | None = None
 
     def to_dict(self) -> dict:
-        return {"bandwidth_hz": self.bandwidth_hz, "dominant_poles": [p.to_dict() for p in self.poles]}
+        return {"bandwidth_hz": self.bandwidth_hz, "dominant_poles": [p.to_dict() for p in self.poles],
+                "tracking_at_grid_frequency": None if self.tracking is None else self.tracking.to_dict()}
 
 
 def characterise(design, analysis, loop=None, count: int = 4) -> ClosedLoopSummary:
@@ -133,7 +167,9 @@ def characterise(design, analysis, loop=None, count: int = 4) -> ClosedLoopSumma
 
     fs = design.sampling.fs_hz
     poles = dominant_poles(analysis.closed_loop_poles, design.sampling.Ts_s, count)
-    bw = None
+    bw = tr = None
     if analysis.stable:
-        bw = tracking_bandwidth_hz(loop if loop is not None else build_loop(design), fs)
-    return ClosedLoopSummary(bw, poles)
+        loop = loop if loop is not None else build_loop(design)
+        bw = tracking_bandwidth_hz(loop, fs)
+        tr = tracking_at(loop, fs, design.grid.f_hz)
+    return ClosedLoopSummary(bw, poles, tr)

@@ -71,8 +71,10 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
                 xytext=(-2, 0), textcoords="offset points", ha="right", va="top", rotation=90, fontsize=7,
                 color=col, bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.85),
             )
-    axs[0].step(w.sample_time_s * 1e3, w.iref_A, where="post", color=c["black"], lw=0.8, ls=(0, (1, 1.5)),
-                label="current reference i_ref[k]")
+    # the reference on the panel of the regulated current (i2 for grid-side, i1 for converter-side feedback)
+    ref_ax = axs[1] if getattr(w, "feedback", "grid") == "converter" else axs[0]
+    ref_ax.step(w.sample_time_s * 1e3, w.iref_A, where="post", color=c["black"], lw=0.8, ls=(0, (1, 1.5)),
+                label="current reference i_ref[k] (regulated current)")
     ax_v = axs[2].twinx()
     ax_v.plot(w.time_s * 1e3, w.vg_V, color=c["green"], lw=0.9, alpha=0.8, label="grid voltage vg (right axis, panel 3)")
     ax_v.set_ylabel("vg [V] (same scale as vc)", color=c["green"])
@@ -138,8 +140,9 @@ def waveform_figure(w, compare=None, rate=None, compare_rate=None, title: str | 
         bbox=dict(boxstyle="round,pad=0.3", fc="white", ec="#999999", alpha=0.9),
     )
 
-    axs[0].set_ylabel("i2 [A]")
-    axs[1].set_ylabel("i1 [A]")
+    conv = getattr(w, "feedback", "grid") == "converter"
+    axs[0].set_ylabel("i2 [A]" + ("" if conv else "\n(regulated)"))
+    axs[1].set_ylabel("i1 [A]" + ("\n(regulated)" if conv else ""))
     axs[2].set_ylabel("vc [V]")
     axs[3].set_ylabel("u [V]")
     axs[3].set_xlabel("time [ms]")

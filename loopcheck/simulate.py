@@ -87,7 +87,8 @@ class Waveforms:
     which a current exceeded ``trip_current_A`` and the run stopped, or
     None (the fine waveform and the sample arrays then end at that sample:
     the last fine point is the trip instant); notes: remarks (e.g. no steady state found); model: "averaged"
-    or a description of the switched modulator (:mod:`loopcheck.switched`).
+    or a description of the switched modulator (:mod:`loopcheck.switched`);
+    feedback: the regulated current, "grid" (i2) or "converter" (i1).
     """
 
     name: str
@@ -112,6 +113,7 @@ class Waveforms:
     tripped_at_s: float | None
     notes: tuple[str, ...]
     model: str = "averaged"
+    feedback: str = "grid"
 
 
 # ---------------------------------------------------------------------------
@@ -530,6 +532,7 @@ def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float
         events=tuple(applied),
         tripped_at_s=tripped,
         notes=tuple(notes),
+        feedback=design.control.feedback,
     )
 
 

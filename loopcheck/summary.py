@@ -157,6 +157,12 @@ def format_summary(case, analysis, range_verdict=None, closed_loop=None) -> str:
             cl_lines.append(f"bandwidth {q(bw, 'Hz')} (|i/i_ref| = |L/(1+L)| falls to -3 dB)")
         elif a.stable:
             cl_lines.append("bandwidth: n/a (|L/(1+L)| does not cross -3 dB below fs/2)")
+        tr = closed_loop.tracking
+        if tr is not None:
+            cl_lines.append(
+                f"tracking at {q(tr.frequency_hz, 'Hz')}: |i/i_ref| = {tr.gain:.5f}, phase {tr.phase_deg:+.3f} deg, "
+                f"error {100 * tr.error:.3g} % of the reference amplitude"
+            )
         for p in closed_loop.poles:
             osc = f"{q(p.damped_frequency_hz, 'Hz')}" if p.damped_frequency_hz > 0 else "real"
             cl_lines.append(

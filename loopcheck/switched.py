@@ -326,6 +326,7 @@ def simulate_switched(design: Design, pwm: PwmSpec, scenario: Scenario, Hi_V_per
         tripped_at_s=tripped,
         notes=tuple(notes),
         model=f"switched ({pwm.scheme}, {pwm.update} update, fsw = {fsw:g} Hz, Vdc = {Vdc:g} V)",
+        feedback=design.control.feedback,
     )
 
 

@@ -31,7 +31,8 @@ CASES = Path(__file__).resolve().parent.parent / "cases"
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 
 
-@pytest.mark.parametrize("name", ["commercial-30kva-weak-grid.toml", "residential-5kva-1ph.toml"])
+@pytest.mark.parametrize("name", ["commercial-30kva-weak-grid.toml", "residential-5kva-1ph.toml",
+                                  "central-250kva-converter-side.toml"])
 def test_bandwidth_and_poles_match_python_control(name):
     design = read_case(str(CASES / name)).design
     a = analyse(design)
@@ -44,6 +45,11 @@ def test_bandwidth_and_poles_match_python_control(name):
     assert mag(bw) == pytest.approx(1 / math.sqrt(2), rel=1e-6)
     f_low = np.geomspace(fs * 1e-5, bw * 0.999, 400)
     assert min(mag(f) for f in f_low) > 1 / math.sqrt(2) - 1e-9  # the first crossing
+    f1 = design.grid.f_hz
+    t1 = complex(T(np.exp(2j * math.pi * f1 / fs)))
+    assert cl.tracking.gain == pytest.approx(abs(t1), rel=1e-9)
+    assert cl.tracking.error == pytest.approx(abs(1 - t1), rel=1e-6, abs=1e-12)
+    assert cl.tracking.phase_deg == pytest.approx(math.degrees(np.angle(t1)), abs=1e-7)
     wn, zeta, poles = ct.damp(T, doprint=False)
     for p in cl.poles:
         k = int(np.argmin(np.abs(poles - p.z)))

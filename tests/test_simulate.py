@@ -372,3 +372,19 @@ def test_rate_check_window_starts_where_the_rounded_pulse_ends():
     rc = resonance_rate_check(d, sc)
     assert rc.window_s[0] == pytest.approx(start + width, abs=1e-12)
     assert rc.window_s[1] - rc.window_s[0] == pytest.approx(rc.samples * Ts, abs=1e-12)
+
+
+@pytest.mark.parametrize("feedback, panel", [("grid", 0), ("converter", 1)])
+def test_reference_is_drawn_on_the_panel_of_the_regulated_current(feedback, panel):
+    # issue 12: the reference belongs beside the current the loop regulates
+    # (i2 for grid-side feedback, i1 for converter-side; common practice)
+    from loopcheck.sim_plot import waveform_figure
+
+    d = Design(Filter(1.2e-3, 10e-6, 0.5e-3), Grid(50.0, 0.2e-3), Sampling(20e3, 1.0),
+               Control(feedback, "PR", Kp_V_per_A=8.0, Kr=300.0, Hi_V_per_A=6.0))
+    w = simulate(d, Scenario(duration_s=0.02))
+    fig = waveform_figure(w, None, None, None)
+    owners = [i for i, ax in enumerate(fig.axes[:4]) for ln in ax.get_lines()
+              if ln.get_label().startswith("current reference")]
+    assert owners == [panel]
+    assert np.allclose(w.ifb_A, (w.i2_A if feedback == "grid" else w.i1_A)[:: w.points_per_sample][: w.ifb_A.size])
