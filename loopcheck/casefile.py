@@ -70,6 +70,8 @@ CORE_TABLES = ("filter", "grid", "sampling", "control")
 OPTIONAL_TABLES = ("map", "tolerance", "firmware", "scenario", "targets", "pwm", "harmonics", "report")
 #: Plain keys allowed at the top of the file.
 TOP_KEYS = ("name", "description")
+#: Largest whole number in a list read by :func:`read_int_list`.
+INT_LIST_MAX = 1_000_000
 #: At most this many harmonic resonators in [control] harmonics.
 MAX_HARMONICS = 12
 #: Longest accepted ``name`` [characters].
@@ -288,11 +290,14 @@ def read_int_list(
     if not isinstance(value, list) or any(isinstance(v, bool) or not isinstance(v, int) for v in value):
         raise _fail(where, key, f"expected a list of whole numbers such as [3, 5, 7], got {shown(value)}")
     if len(set(value)) != len(value):
-        raise _fail(where, key, f"lists a number twice: {value}")
+        raise _fail(where, key, f"lists a number twice: {shown(value) if len(str(value)) > 60 else value}")
     if minimum is not None:
         for v in value:
             if v < minimum:
-                raise _fail(where, key, f"values must be at least {minimum}, got {v}")
+                raise _fail(where, key, f"values must be at least {minimum}, got {shown(v)}")
+    for v in value:
+        if abs(v) > INT_LIST_MAX:
+            raise _fail(where, key, f"values must be at most {INT_LIST_MAX:,}, got {shown(v)}")
     return tuple(value)
 
 
