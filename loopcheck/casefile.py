@@ -70,6 +70,8 @@ CORE_TABLES = ("filter", "grid", "sampling", "control")
 OPTIONAL_TABLES = ("map", "tolerance", "firmware", "scenario", "targets", "pwm", "harmonics", "report")
 #: Plain keys allowed at the top of the file.
 TOP_KEYS = ("name", "description")
+#: Largest whole number in a list read by :func:`read_int_list`.
+INT_LIST_MAX = 1_000_000
 #: At most this many harmonic resonators in [control] harmonics.
 MAX_HARMONICS = 12
 #: Longest accepted ``name`` [characters].
@@ -288,11 +290,14 @@ def read_int_list(
     if not isinstance(value, list) or any(isinstance(v, bool) or not isinstance(v, int) for v in value):
         raise _fail(where, key, f"expected a list of whole numbers such as [3, 5, 7], got {shown(value)}")
     if len(set(value)) != len(value):
-        raise _fail(where, key, f"lists a number twice: {value}")
+        raise _fail(where, key, f"lists a number twice: {shown(value) if len(str(value)) > 60 else value}")
     if minimum is not None:
         for v in value:
             if v < minimum:
-                raise _fail(where, key, f"values must be at least {minimum}, got {v}")
+                raise _fail(where, key, f"values must be at least {minimum}, got {shown(v)}")
+    for v in value:
+        if abs(v) > INT_LIST_MAX:
+            raise _fail(where, key, f"values must be at most {INT_LIST_MAX:,}, got {shown(v)}")
     return tuple(value)
 
 
@@ -451,9 +456,11 @@ def check_plausible(design: Design, path_label: str) -> None:
         out_of(wd, "Cd", d.Cd_F, *C_LIMITS_F, "F")
     if d.kind == "split-RLC":
         out_of(wd, "Ld", d.Ld_H, *L_LIMITS_H, "H")
-    out_of(wg, "Lg", g.Lg_H, 0.0, L_LIMITS_H[1], "H")
-    if g.Lg_range_H is not None:
-        out_of(wg, "Lg_range", g.Lg_range_H[1], 0.0, L_LIMITS_H[1], "H")
+    for key, value in [("Lg", g.Lg_H)] + [("Lg_range", v) for v in (g.Lg_range_H or ())]:
+        out_of(wg, key, value, 0.0, L_LIMITS_H[1], "H")
+        if 0.0 < value < L_LIMITS_H[0]:
+            raise CaseError(f"{wg} {key}: a grid inductance is 0 or at least {L_LIMITS_H[0]:g} H, got {value:g} H "
+                            f"(see docs/case-file.md, plausibility ranges)")
     out_of(wg, "Rg", g.Rg_ohm, 0.0, R_MAX_LIMIT_OHM, "Ohm")
     out_of(wsm, "fs", s.fs_hz, *FS_LIMITS_HZ, "Hz")
     z = gain_scale_V_per_A(design)
@@ -465,6 +472,33 @@ def check_plausible(design: Design, path_label: str) -> None:
     kr_hi = hi if c.wc_rad_s > 0 else hi * 2.0 * w_nyq
     out_of(wct, "Kr", c.Kr, 0.0, kr_hi, "V/A" if c.wc_rad_s > 0 else "V/A/s")
     out_of(wct, "wc", c.wc_rad_s, 0.0, w_nyq, "rad/s")
+
+
+def override_problem(design: Design, name: str, value: float) -> str | None:
+    """Why ``value`` given for ``name`` on the command line or as a sweep
+    end (L1, L2, C, Lg, fs, Kp, Hi, Ki, Kr) lies outside the plausibility
+    ranges of :func:`check_plausible` for ``design``, or None. Gains may be
+    zero (a sweep may start there); only their size is bounded."""
+    f = design.filter
+    z = gain_scale_V_per_A(design)
+    if name == "fs":
+        z = 2.0 * math.pi * value * (f.L1_H + f.L2_H)
+    ranges = {
+        "L1": (L_LIMITS_H, "H"), "L2": (L_LIMITS_H, "H"), "C": (C_LIMITS_F, "F"), "Lg": ((0.0, L_LIMITS_H[1]), "H"),
+        "fs": (FS_LIMITS_HZ, "Hz"), "Kp": ((0.0, GAIN_SPAN[1] * z), "V/A"), "Hi": ((0.0, GAIN_SPAN[1] * z), "V/A"),
+        "Ki": ((0.0, GAIN_SPAN[1] * z * 2.0 * math.pi * design.sampling.fs_hz), "V/A/s"),
+        "Kr": ((0.0, GAIN_SPAN[1] * z * 2.0 * math.pi * design.sampling.fs_hz), "V/A/s"),
+    }
+    if name not in ranges:
+        return None
+    (lo, hi), unit = ranges[name]
+    x = abs(value) if name in ("Hi", "Kp", "Ki", "Kr") else value
+    if name == "Lg" and 0.0 < x < L_LIMITS_H[0]:
+        return f"Lg = {value:g} H: a grid inductance is 0 or at least {L_LIMITS_H[0]:g} H (see docs/case-file.md)"
+    if not (math.isfinite(x) and lo <= x <= hi):
+        return (f"{name} = {value:g} {unit} is outside the range this tool analyses ({lo:g} to {hi:g} {unit}"
+                f"{' in magnitude' if name == 'Hi' else ''}; see docs/case-file.md, plausibility ranges)")
+    return None
 
 
 def _bare(table: dict, key: str) -> bool:

@@ -406,6 +406,20 @@ MAX_MONTE_CARLO_UNITS = 200_000
 MAX_SIMULATION_WORK = 6e7
 
 
+def check_option_values(design, name: str, values, option: str) -> None:
+    """Fail (one line, exit 2) when a value given with ``option`` for the
+    parameter ``name`` (L1, L2, C, Lg, fs, Kp, Hi, Ki, Kr) is outside the
+    plausibility ranges of docs/case-file.md for ``design``."""
+    if values is None:
+        return
+    from loopcheck.casefile import override_problem
+
+    for v in values if isinstance(values, (tuple, list)) else (values,):
+        problem = override_problem(design, name, v)
+        if problem:
+            fail(f"{option}: {problem}")
+
+
 def check_work(amount: float, limit: float, what: str, reduce: str) -> None:
     """Fail (one line, exit 2) when the estimated ``amount`` of work exceeds
     ``limit``: ``what`` says what was asked, ``reduce`` what to lower."""

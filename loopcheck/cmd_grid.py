@@ -12,6 +12,7 @@ import typer
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
     check_figure_output,
+    check_option_values,
     fail,
     json_line,
     load_case,
@@ -54,6 +55,7 @@ def lg_range_or_fail(case, lg_range: Optional[tuple[str, str]]) -> tuple[float, 
             fail(f"--lg-range: {exc}")
         if lo < 0 or hi < lo:
             fail(f"--lg-range: need 0 <= from <= to, got {lg_range[0]} {lg_range[1]}")
+        check_option_values(case.design, "Lg", (lo, hi), "--lg-range")
         return lo, hi
     rng = case.design.grid.Lg_range_H
     if rng is None:

@@ -13,6 +13,7 @@ from loopcheck.cli_common import (
     EXIT_UNSTABLE,
     MAX_PICK_EVALUATIONS,
     check_figure_output,
+    check_option_values,
     check_work,
     fail,
     json_line,
@@ -172,6 +173,8 @@ def pick(
     kr = _gain_range("--kp-range", kp_range, positive=True)
     if kr is not None and not also_kp:
         fail("--kp-range needs --also-kp")
+    check_option_values(loaded.design, "Hi", hr, "--hi-range")
+    check_option_values(loaded.design, "Kp", kr, "--kp-range")
     print_warnings(loaded)
     corners = 2 ** len(spec.components) if spec is not None else 1
     check_work(points * lg_points * (corners + 1) * (7 if also_kp else 1), MAX_PICK_EVALUATIONS,

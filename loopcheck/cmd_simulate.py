@@ -11,6 +11,7 @@ import typer
 from loopcheck.cli_common import (
     case_tolerance,
     check_figure_output,
+    check_option_values,
     check_simulation_size,
     atomic_path,
     check_output,
@@ -149,6 +150,7 @@ def simulate(
     except CaseError as exc:
         fail(str(exc))
     Hi_cmp = _parse_compare(compare) if compare is not None else None
+    check_option_values(loaded.design, "Hi", Hi_cmp, "--compare")
     check_simulation_size(loaded.design, sc.duration_s, sc.points_per_sample, runs=1 if Hi_cmp is None else 2)
     check_figure_output(output)
     check_output(csv, "--csv")

@@ -990,7 +990,9 @@ def read_firmware_settings(table: dict, where: str, damping_gain_used: bool = Tr
             return None
         v = t[key]
         if isinstance(v, bool) or not isinstance(v, int) or not lo <= v <= hi:
-            raise err(key, f"expected a whole number from {lo} to {hi}, got {v!r}")
+            from .units import shown
+
+            raise err(key, f"expected a whole number from {lo} to {hi}, got {shown(v)}")
         return v
 
     def either(direct: str, parts: tuple[str, ...]) -> str | None:

@@ -179,6 +179,12 @@ def _read_range(value, label: str, name: str, design) -> tuple[float, float]:
         raise _err(label, f"{name} must be greater than zero, got {shown(value[0])}")
     if name == "Lg" and lo < 0:
         raise _err(label, f"Lg must not be negative, got {shown(value[0])}")
+    from loopcheck.casefile import override_problem
+
+    for x in (lo, hi):
+        problem = override_problem(design, name, x)
+        if problem:
+            raise _err(label, problem)
     return lo, hi
 
 

@@ -90,7 +90,7 @@ def read_pwm(case, required: bool = True):
             )
         return None, []
     check_keys(t, PWM_KEYS, w)
-    Vdc = read_quantity(t, "dc_link", "voltage", w, positive=True)
+    Vdc = read_quantity(t, "dc_link", "voltage", w, positive=True, minimum=1.0, maximum=1e6)
     scheme = read_choice(t, "scheme", SCHEMES, w, "three-phase")
     update = read_choice(t, "update", UPDATES, w, "single")
     modulation = read_choice(t, "modulation", MODULATIONS, w, "sine")
@@ -101,7 +101,7 @@ def read_pwm(case, required: bool = True):
         )
     fs = case.design.sampling.fs_hz
     default_fsw = fs / 2.0 if update == "double" else fs
-    fsw = read_quantity(t, "switching_frequency", "frequency", w, default_fsw, positive=True)
+    fsw = read_quantity(t, "switching_frequency", "frequency", w, default_fsw, positive=True, minimum=100.0, maximum=10e6)
     warnings = []
     expect = {"single": fsw, "double": 2.0 * fsw}.get(update)
     if expect is not None and abs(expect - fs) > 1e-6 * fs:
@@ -120,15 +120,17 @@ def read_harmonics_options(case) -> HarmonicsOptions:
     w = case.where("harmonics")
     check_keys(t, HARMONICS_KEYS, w)
     ph = t.get("current_phase_deg", 0.0)
-    if isinstance(ph, bool) or not isinstance(ph, (int, float)) or not math.isfinite(float(ph)):
+    from loopcheck.units import to_float
+
+    if isinstance(ph, bool) or not isinstance(ph, (int, float)) or not math.isfinite(to_float(ph)):
         from loopcheck.units import shown
 
         raise CaseError(f"{w} current_phase_deg: expected an angle in degrees as a plain number (e.g. -30), got {shown(ph)}")
     return HarmonicsOptions(
-        rated_current_rms_A=read_quantity(t, "rated_current", "current", w, None, positive=True),
-        current_rms_A=read_quantity(t, "current", "current", w, None, nonnegative=True),
+        rated_current_rms_A=read_quantity(t, "rated_current", "current", w, None, positive=True, minimum=1e-3, maximum=1e6),
+        current_rms_A=read_quantity(t, "current", "current", w, None, nonnegative=True, maximum=1e6),
         current_phase_deg=float(ph),
-        grid_peak_V=read_quantity(t, "grid_peak", "voltage", w, None, positive=True),
+        grid_peak_V=read_quantity(t, "grid_peak", "voltage", w, None, positive=True, maximum=1e7),
         max_group=_whole(t, "max_carrier_group", w, 4, 1, 10),
         max_sideband=_whole(t, "max_sideband", w, 12, 1, 40),
         lg_points=_whole(t, "lg_points", w, 9, 2, 201),

@@ -74,6 +74,7 @@ import re
 from dataclasses import dataclass, field
 
 from loopcheck.casefile import CaseError, check_keys, read_choice, read_quantity
+from loopcheck.units import to_float
 
 EVENT_KINDS = (
     "reference-step",
@@ -210,7 +211,7 @@ def _angle(t: dict, key: str, w: str, default=None):
     if key not in t:
         return default
     v = t[key]
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)):
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(to_float(v)):
         raise CaseError(f"{w} {key}: expected an angle in degrees as a plain number (e.g. 30), got {_show(v)}")
     return float(v)
 
@@ -227,7 +228,7 @@ def _whole(t: dict, key: str, w: str, default: int, lo: int, hi: int) -> int:
 
 
 def _show(v) -> str:
-    from loopcheck.units import shown
+    from loopcheck.units import to_float, shown
 
     return shown(v)
 

@@ -173,6 +173,15 @@ def split_quantity(text: str) -> tuple[Decimal, str]:
     return number, unit
 
 
+def to_float(value) -> float:
+    """``float(value)`` for a TOML number or a Decimal; inf instead of an
+    OverflowError for a whole number beyond the double range."""
+    try:
+        return float(value)
+    except (OverflowError, ArithmeticError):
+        return math.inf if value > 0 else -math.inf
+
+
 def _finite_float(number: Decimal) -> float:
     """``float(number)``; inf for a magnitude beyond the double range (the
     callers refuse it), 0.0 below the smallest double."""

@@ -128,20 +128,28 @@ class Targets:
         return s
 
 
+#: Largest gain-margin target or sensitivity-peak limit [dB] (a factor 1e10).
+MAX_TARGET_DB = 200.0
+
+
+def shown_db(x: float, unit: str) -> str:
+    return f"{x:g} dB" if unit == "dB" else f"{x:g}"
+
+
 def _read_angle_or_db(value, unit_names: tuple[str, ...], where: str, key: str, example: str) -> tuple[float, str]:
     from loopcheck.casefile import CaseError
-    from loopcheck.units import UnitError, shown, split_quantity
+    from loopcheck.units import UnitError, shown, split_quantity, to_float
 
     if isinstance(value, bool) or not isinstance(value, (int, float, str)):
         raise CaseError(f'{where} {key}: expected a value such as "{example}", got {shown(value)}')
     if isinstance(value, (int, float)):
-        x, unit = float(value), ""
+        x, unit = to_float(value), ""
     else:
         try:
             number, unit = split_quantity(value)
         except UnitError:
             raise CaseError(f'{where} {key}: expected a value such as "{example}", got {shown(value)}') from None
-        x = float(number)
+        x = to_float(number)
         if unit and unit not in unit_names:
             raise CaseError(f'{where} {key}: expected a value such as "{example}", got {shown(value)}')
     if not math.isfinite(x):
@@ -172,6 +180,8 @@ def parse_targets(table: dict | None, where: str, *, phase_margin_deg: float | N
         gm, _ = _read_angle_or_db(table["gain_margin"], ("dB",), where, "gain_margin", "3 dB")
     if "sensitivity_peak" in table:
         x, unit = _read_angle_or_db(table["sensitivity_peak"], ("dB",), where, "sensitivity_peak", "6 dB")
+        if (x if unit == "dB" else 20.0 * math.log10(max(x, 1e-300))) > MAX_TARGET_DB:
+            raise CaseError(f"{where} sensitivity_peak: at most {MAX_TARGET_DB:g} dB, got {shown_db(x, unit)}")
         smax = 10.0 ** (x / 20.0) if unit == "dB" else x
         if smax <= 1.0:
             raise CaseError(f"{where} sensitivity_peak: must exceed 0 dB (a ratio above 1), got {x:g}{' dB' if unit else ''}")
@@ -180,13 +190,15 @@ def parse_targets(table: dict | None, where: str, *, phase_margin_deg: float | N
     if gain_margin_db is not None:
         gm = gain_margin_db
     if sensitivity_peak_db is not None:
+        if sensitivity_peak_db > MAX_TARGET_DB:
+            raise CaseError(f"--sensitivity-peak: at most {MAX_TARGET_DB:g} dB, got {sensitivity_peak_db:g} dB")
         smax = 10.0 ** (sensitivity_peak_db / 20.0)
         if smax <= 1.0:
             raise CaseError(f"the sensitivity-peak limit must exceed 0 dB, got {sensitivity_peak_db:g} dB")
     if not 0.0 < pm < 180.0:
         raise CaseError(f"{where} phase_margin: must lie between 0 and 180 deg, got {pm:g}")
-    if not gm > 0.0:
-        raise CaseError(f"{where} gain_margin: must be greater than 0 dB, got {gm:g}")
+    if not 0.0 < gm <= MAX_TARGET_DB:
+        raise CaseError(f"{where} gain_margin: must lie above 0 dB and at most {MAX_TARGET_DB:g} dB, got {gm:g}")
     return Targets(pm, gm, smax)
 
 

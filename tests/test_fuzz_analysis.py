@@ -11,6 +11,8 @@ built independently with python-control (tests/reference_loop.py) for the
 P controller; python-control's minimal realisation (``minreal``) of the
 zero-gain integrator or resonator has no state, which is why its pole must
 not count.
+Command-line sweep ends and overrides get the same ranges; [firmware]
+scalings anywhere in the double range are refused or exported.
 Class 6: no numpy warning reaches stderr (grid figure with every tolerance
 corner unstable; simulation of a violently unstable loop).
 
@@ -200,3 +202,47 @@ def test_values_inside_the_ranges_are_analysed(tk, u, negative):
         return
     a = analyse(case.design)
     assert math.isfinite(a.spectral_radius) and a.verdict in ("stable", "marginal", "unstable")
+
+
+OPTION_RUNS = [  # (arguments before the value(s), how many values, arguments after)
+    (["map", "{case}", "--y", "Hi", "--y-range", "0"], 1, ["--x-points", "3", "--y-points", "3", "-q"], "--y-range"),
+    (["map", "{case}", "--x", "Kp", "--x-range", "1"], 1, ["--x-points", "3", "--y-points", "3", "-q"], "--x-range"),
+    (["grid", "{case}", "--lg-range", "0"], 1, ["--points", "3", "-q"], "--lg-range"),
+    (["pick", "{case}", "--hi-range", "0"], 1, ["--points", "5", "--lg-points", "2", "-q"], "--hi-range"),
+]
+
+
+@settings(FUZZ, max_examples=12)
+@given(run=st.sampled_from(OPTION_RUNS), exp=st.integers(6, 308), negative=st.booleans())
+def test_extreme_sweep_ends_on_the_command_line_are_refused(tmp_path_factory, run, exp, negative):
+    before, _, after, option = run
+    p = tmp_path_factory.mktemp("opt") / "case.toml"
+    p.write_text(case_text().replace("Lg = 0.5e-3", "Lg = 0.5e-3\nLg_range = [0, 1e-3]"), encoding="utf-8")
+    value = f"{'-' if negative and option == '--hi-range' else ''}1e{exp}"
+    if option == "--lg-range":
+        value += " H"
+    args = [a.format(case=p) for a in before] + [value] + after
+    if option == "--hi-range" and negative:  # FROM < TO: the negative end first
+        args[args.index("--hi-range") + 1: args.index("--hi-range") + 3] = [value, "0"]
+    r = CliRunner().invoke(app, args, env=ENV)
+    assert r.exit_code == 2, (r.stdout, r.stderr)
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and option in lines[0] and "outside the range" in lines[0], r.stderr
+
+
+@FUZZ
+@given(mag=magnitudes, key=st.sampled_from(["current_counts_per_A", "modulator_counts_per_V", "ic_counts_per_A"]))
+def test_firmware_scalings_are_refused_or_exported(mag, key):
+    from loopcheck.firmware import export_controller, read_firmware_settings
+
+    values = {"current_counts_per_A": 40.96, "modulator_counts_per_V": 6.0, "ic_counts_per_A": 40.96}
+    values[key] = mag
+    table = "\n[firmware]\n" + "".join(f"{k} = {v!r}\n" for k, v in values.items())
+    case = case_from_string(case_text(extra=table), "fuzz.toml")
+    try:
+        settings_, _ = read_firmware_settings(case.tables["firmware"], case.where("firmware"), damping_gain_used=True)
+    except CaseError as e:
+        assert f"[firmware] {key}" in str(e) and "\n" not in str(e)
+        return
+    ex = export_controller(case.design, settings_)
+    assert ex.recheck.before is not None

@@ -168,9 +168,10 @@ def test_a_fifo_is_written_directly(tmp_path_factory, points):
     assert os.path.exists(fifo) and not os.path.isfile(fifo)  # still a FIFO
 
 
-@settings(derandomize=True, max_examples=3, deadline=None,
+@pytest.mark.parametrize("which", ["figure", "csv"])
+@settings(derandomize=True, max_examples=2, deadline=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
-@given(which=st.sampled_from(["figure", "csv"]), stem=names)
+@given(stem=names)
 def test_outputs_of_one_run_are_committed_together(tmp_path_factory, monkeypatch, which, stem):
     """The map writes its figure, then its CSV. Whichever write fails, both
     old files stay as they were and no temporary file is left."""

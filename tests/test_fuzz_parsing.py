@@ -266,3 +266,43 @@ def test_float_options_refuse_non_finite_values(opt, value):
     r = CliRunner().invoke(app, [command, "cases/residential-5kva-1ph.toml", option, *([value] * nargs)], env=ENV)
     assert_one_line_exit_2(r, option)
     assert math.isnan(float(value)) or math.isinf(float(value))
+
+
+OPTIONAL_NUMBERS = [  # (table, key, reader)
+    ("targets", "phase_margin", "targets"), ("targets", "gain_margin", "targets"),
+    ("targets", "sensitivity_peak", "targets"), ("scenario", "grid_phase_deg", "scenario"),
+    ("harmonics", "current_phase_deg", "harmonics"), ("scenario", "points_per_sample", "scenario"),
+    ("firmware", "adc_bits", "firmware"),
+]
+
+
+def _read_optional(case, table, reader):
+    if reader == "targets":
+        from loopcheck.weakgrid import parse_targets
+
+        return parse_targets(case.tables.get("targets"), case.where("targets"))
+    if reader == "scenario":
+        from loopcheck.scenario import parse_scenario
+
+        return parse_scenario(case.tables.get("scenario"), case.where("scenario"))
+    if reader == "harmonics":
+        from loopcheck.pwm_tables import read_harmonics_options
+
+        return read_harmonics_options(case)
+    from loopcheck.firmware import read_firmware_settings
+
+    return read_firmware_settings(case.tables["firmware"], case.where("firmware"), damping_gain_used=True)
+
+
+@FUZZ
+@given(entry=st.sampled_from(OPTIONAL_NUMBERS), digits=st.integers(309, 4000), sign=st.sampled_from(["", "-"]),
+       as_db=st.booleans())
+def test_huge_numbers_in_optional_tables(entry, digits, sign, as_db):
+    table, key, reader = entry
+    raw = sign + "9" * digits
+    if as_db and table == "targets":
+        raw = f'"{sign}1e{digits} dB"'
+    case = case_from_string(case_text(extra=f"\n[{table}]\n{key} = {raw}\n"), "fuzz.toml")
+    with pytest.raises(CaseError) as e:
+        _read_optional(case, table, reader)
+    assert key in str(e.value) and "\n" not in str(e.value) and len(str(e.value)) < 400
