@@ -58,7 +58,7 @@ def test_measured_table_interpolation_is_close_to_the_network(tmp_path):
     Z = network_impedance(net, 2j * math.pi * fx)
     err = np.abs(meas.interpolate(fx) - Z) / np.abs(Z)
     near = np.abs(fx / net.resonance_hz() - 1) < 0.1  # rows 2.4 % apart, resonance bandwidth about 4 %
-    assert err[~near].max() < 2e-3 and err[near].max() < 0.1
+    assert err[~near].max() < 5e-3 and err[near].max() < 0.1
 
 
 def test_non_passive_table_is_not_applicable(tmp_path):
