@@ -212,7 +212,16 @@ def passivity_bands(design, f_max_hz: float | None = None, f_min_hz: float = 1.0
     def re(f):
         return output_admittance(model, 2j * math.pi * np.asarray(f, dtype=float)).real
 
-    f = frequency_grid_hz(fs, f_max, f_min_hz) if grid_hz is None else np.asarray(grid_hz, dtype=float)
+    if grid_hz is None:
+        f = frequency_grid_hz(fs, f_max, f_min_hz)
+        if design.control.kind == "PR":  # narrow features beside every resonator
+            off = np.geomspace(1e-7, 0.02, 80)
+            for h in (1,) + tuple(design.control.harmonics):
+                f0 = h * design.grid.f_hz
+                f = np.concatenate([f, f0 * (1 - off), f0 * (1 + off)])
+            f = np.unique(f[(f >= f_min_hz) & (f <= f_max)])
+    else:
+        f = np.asarray(grid_hz, dtype=float)
     r = re(f)
     neg = r < 0
     edges = []

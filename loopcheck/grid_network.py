@@ -382,3 +382,73 @@ def read_grid_network(case) -> GridNetwork | None:
     if Cs > 0.0 and Lg <= 0.0:
         raise CaseError(f"{w} Lg: a shunt capacitance needs a series inductance Lg > 0 (else the PCC is the source)")
     return GridNetwork(Lg, Rg, Cs, Rs, units)
+
+
+# ---------------------------------------------------------------------------
+# one case: everything the impedance command reports
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ImpedanceCurves:
+    """Sampled curves for the figure: frequency_hz [Hz] (positive, log-spaced),
+    Yo_S [S], Zg_ohm [ohm] of the grid as N units see it (N Zg; NaN outside
+    measured data), loop = N Zg Yo [-]."""
+
+    frequency_hz: np.ndarray
+    Yo_S: np.ndarray
+    Zg_ohm: np.ndarray
+    loop: np.ndarray
+
+
+@dataclass(frozen=True)
+class ImpedanceStudy:
+    """The impedance view of one case.
+
+    passivity: non-passive bands of Yo (:class:`loopcheck.admittance.PassivityResult`);
+    network: the components (None for measured data); measured: the table
+    (None for components); units; ratio: the impedance-ratio verdict
+    (:class:`ImpedanceVerdict` or :class:`loopcheck.measured_grid.MeasuredVerdict`);
+    exact: the eigenvalue verdict with the network inside the exact model
+    (None for measured data); source: "grid_network", "measured" or "grid"
+    (the [grid] Lg and Rg when the case has no [grid_network] table);
+    curves: for the figure."""
+
+    passivity: object
+    network: GridNetwork | None
+    measured: object
+    units: int
+    ratio: object
+    exact: ExactVerdict | None
+    source: str
+    curves: ImpedanceCurves
+
+
+def study(design, net: GridNetwork | None, f_max_hz: float | None = None) -> ImpedanceStudy:
+    """Passivity bands, impedance-ratio and eigenvalue verdicts for a design
+    on a network (``None``: the design's own [grid] Lg and Rg).
+
+    Raises :class:`loopcheck.casefile.CaseError` for a bad measured table."""
+    from .admittance import passivity_bands
+    from .measured_grid import measured_verdict, read_measured_impedance
+
+    fs = design.sampling.fs_hz
+    source = "grid_network"
+    if net is None:
+        net = GridNetwork(design.grid.Lg_H, design.grid.Rg_ohm)
+        source = "grid"
+    passivity = passivity_bands(design, f_max_hz=fs if f_max_hz is None else f_max_hz)
+    N = net.units
+    f = np.geomspace(1.0, 2.0 * fs, 4000)
+    f = np.unique(np.concatenate([f, np.linspace(fs / 50, 2 * fs, 4000)]))
+    model = admittance_model(design)
+    Yo = output_admittance(model, 2j * math.pi * f)
+    if net.measured is not None:
+        meas = read_measured_impedance(net.measured)
+        ratio = measured_verdict(design, meas, N)
+        Z = np.where((f >= meas.frequency_hz[0]) & (f <= meas.frequency_hz[-1]), N * meas.interpolate(f), np.nan)
+        return ImpedanceStudy(passivity, None, meas, N, ratio, None, "measured", ImpedanceCurves(f, Yo, Z, Z * Yo))
+    ratio = impedance_ratio_verdict(design, net)
+    exact = exact_verdict(design, net)
+    Z = network_impedance(net.scaled(N), 2j * math.pi * f)
+    return ImpedanceStudy(passivity, net, None, N, ratio, exact, source, ImpedanceCurves(f, Yo, Z, Z * Yo))
