@@ -23,7 +23,7 @@ function):
 
     y[k]   = Pd(z) u[k] + Gyv(jw) vg           (exact samples, z = e^{jw Ts})
     u      = -K(z) y,   K = [Gc(z) on i_fb, Hi on ic]
-    u      = -K Gyv vg / (1 + K Pd)
+    u      = (Gff(z) - K Gyv) vg / (1 + K Pd)    (Gff: optional grid-voltage feedforward)
     i2(jw) = G2v(jw) vg + G2u(jw) H(jw)/Ts u,  H(s) = e^{-s delay Ts}(1 - e^{-s Ts})/s
 
 ``Pd`` is the exact ZOH pulse response with the delay (the engine's
@@ -65,6 +65,36 @@ from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, PlantSS, lcl_state_space
 
 
 @dataclass(frozen=True)
+class Feedforward:
+    """Grid-voltage feedforward: the sampled PCC voltage vg[k], through a
+    first-order low-pass, times ``gain`` [-], added to the converter-voltage
+    command (u[k] = uc[k] - Hi ic[k] + gain F(z) vg[k]) and applied with the
+    same hold and delay. ``cutoff_hz`` [Hz] (None: no filter) sets
+    a = 1 - e^{-2 pi fc Ts} in y[k] = y[k-1] + a (vg[k] - y[k-1]),
+    F(z) = a z / (z - (1 - a))."""
+
+    gain: float = 1.0
+    cutoff_hz: float | None = None
+
+    def blocks(self, Ts_s: float):
+        """(A, B, C, D) of gain * F(z) as a discrete state space [-] (1x1 or
+        empty A for no filter)."""
+        if self.cutoff_hz is None:
+            return np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), np.array([[self.gain]])
+        a = -math.expm1(-2 * math.pi * self.cutoff_hz * Ts_s)
+        g = self.gain
+        return np.array([[1 - a]]), np.array([[a]]), np.array([[g * (1 - a)]]), np.array([[g * a]])
+
+    def response(self, z, Ts_s: float):
+        """gain * F(z) at the points z."""
+        z = np.asarray(z, dtype=complex)
+        if self.cutoff_hz is None:
+            return np.full(z.shape, self.gain, dtype=complex)
+        a = -math.expm1(-2 * math.pi * self.cutoff_hz * Ts_s)
+        return self.gain * a * z / (z - (1 - a))
+
+
+@dataclass(frozen=True)
 class AdmittanceModel:
     """Everything needed to evaluate Yo at any s.
 
@@ -86,6 +116,7 @@ class AdmittanceModel:
     fb_row: int
     Ts_s: float
     delay: float
+    feedforward: Feedforward | None = None
 
 
 def pcc_plant(design) -> tuple[PlantSS, np.ndarray]:
@@ -99,8 +130,9 @@ def pcc_plant(design) -> tuple[PlantSS, np.ndarray]:
     return p, Bv
 
 
-def admittance_model(design) -> AdmittanceModel:
-    """The sampled loop of ``design`` at a stiff PCC, ready for :func:`output_admittance`."""
+def admittance_model(design, feedforward: Feedforward | None = None) -> AdmittanceModel:
+    """The sampled loop of ``design`` at a stiff PCC, ready for
+    :func:`output_admittance`, with optional grid-voltage feedforward."""
     p, Bv = pcc_plant(design)
     Ts = design.sampling.Ts_s
     dp = discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay)
@@ -108,7 +140,7 @@ def admittance_model(design) -> AdmittanceModel:
     row = OUTPUT_I2 if design.control.feedback == "grid" else OUTPUT_I1
     return AdmittanceModel(
         p.A, p.B, Bv, p.C, dp.A, dp.B, dp.C, loop.blocks, float(design.control.Hi_V_per_A), row, Ts,
-        float(design.sampling.delay),
+        float(design.sampling.delay), feedforward,
     )
 
 
@@ -149,15 +181,16 @@ def output_admittance(model: AdmittanceModel, s) -> np.ndarray:
         fb, ic = model.fb_row, OUTPUT_IC
         KP = Kc * Pd[:, fb] + Hi * Pd[:, ic]
         KG = Kc * G[:, fb, 1] + Hi * G[:, ic, 1]
-        u = -KG / (1.0 + KP)
+        ff = 0.0 if model.feedforward is None else model.feedforward.response(z, Ts)
+        u = (ff - KG) / (1.0 + KP)
         i2 = G[:, OUTPUT_I2, 1] + G[:, OUTPUT_I2, 0] * hold_response(s, Ts, model.delay) / Ts * u
     return (-i2).reshape(shape)
 
 
-def design_admittance(design, frequency_hz) -> np.ndarray:
+def design_admittance(design, frequency_hz, feedforward: Feedforward | None = None) -> np.ndarray:
     """Yo(j 2 pi f) [S] of a design on a frequency grid [Hz] (vectorised)."""
     f = np.asarray(frequency_hz, dtype=float)
-    return output_admittance(admittance_model(design), 2j * math.pi * f)
+    return output_admittance(admittance_model(design, feedforward), 2j * math.pi * f)
 
 
 @dataclass(frozen=True)
@@ -200,14 +233,15 @@ def frequency_grid_hz(fs_hz: float, f_max_hz: float, f_min_hz: float = 1.0, n_lo
     return np.unique(np.concatenate([lo, lin]))
 
 
-def passivity_bands(design, f_max_hz: float | None = None, f_min_hz: float = 1.0, grid_hz=None) -> PassivityResult:
+def passivity_bands(design, f_max_hz: float | None = None, f_min_hz: float = 1.0, grid_hz=None,
+                    feedforward: Feedforward | None = None) -> PassivityResult:
     """Bands where Re Yo(j 2 pi f) < 0 on (f_min, f_max] [Hz] (default f_max = fs/2).
 
     A dense scan of Re Yo finds the sign changes; each edge is refined with
     Brent's method on the exact evaluation (to 1e-9 relative in frequency)."""
     fs = design.sampling.fs_hz
     f_max = fs / 2.0 if f_max_hz is None else float(f_max_hz)
-    model = admittance_model(design)
+    model = admittance_model(design, feedforward)
 
     def re(f):
         return output_admittance(model, 2j * math.pi * np.asarray(f, dtype=float)).real

@@ -46,7 +46,8 @@ def impedance(
     delay included); the bands where Re Yo < 0 (not passive) with their
     edges, scanned up to fs; the impedance-ratio verdict (Nyquist count of
     N Zg Yo) on the [grid_network] table (series R-L, shunt R-C, units, or a
-    measured CSV table), or on the [grid] Lg and Rg when there is none; and,
+    measured CSV table), or on the [grid] Lg and Rg when there is none, with
+    the grid-voltage feedforward of a [feedforward] table if given; and,
     for networks given as components, the exact eigenvalue verdict with the
     network inside the sampled model beside it.
 
@@ -57,11 +58,12 @@ def impedance(
     case = load_case(case_file)
 
     from loopcheck.casefile import CaseError
-    from loopcheck.grid_network import read_grid_network, study
+    from loopcheck.grid_network import read_feedforward, read_grid_network, study
 
     try:
         net = read_grid_network(case)
-        result = study(case.design, net)
+        ffw = read_feedforward(case)
+        result = study(case.design, net, feedforward=ffw)
     except CaseError as exc:
         fail(str(exc))
     print_warnings(case)
@@ -115,6 +117,11 @@ def _text(case, result) -> str:
              "output admittance Yo = -i2/vg at the point of connection (i2 into the grid; baseband component of the "
              "sampled loop)",
              f"  critical frequency fs/(4 delay + 2) = {_hz(p.critical_hz)}, Nyquist frequency fs/2 = {_hz(p.nyquist_hz)}"]
+    ffw = result.feedforward
+    if ffw is not None:
+        filt = "no filter" if ffw.cutoff_hz is None else f"first-order low-pass {_hz(ffw.cutoff_hz)}"
+        lines.append(f"  with grid-voltage feedforward of the sampled PCC voltage: gain {ffw.gain:g}, {filt}, "
+                     "same hold and delay as the controller output")
     if p.passive:
         lines.append(f"  passive (Re Yo >= 0) from {_hz(p.f_min_hz)} to {_hz(p.f_max_hz)}")
     else:
@@ -178,6 +185,7 @@ def _record(case, result) -> dict:
             "min_real_S": p.min_real_S,
             "min_real_hz": p.min_real_hz,
         },
+        "feedforward": None if result.feedforward is None else asdict(result.feedforward),
         "grid": {"source": result.source, "units": result.units},
         "impedance_ratio": None,
         "eigenvalue": None,

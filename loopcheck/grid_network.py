@@ -109,13 +109,15 @@ class CoupledPlant:
     """Continuous state space of ``units`` inverters on the network.
 
     A [n, n]; B [n, N] (one converter voltage per unit); C [3N, n], rows
-    (i1, i2, ic) of unit 0, then of unit 1, ...; unit_order: states per unit."""
+    (i1, i2, ic) of unit 0, then of unit 1, ...; unit_order: states per unit;
+    vg_row [n]: the PCC voltage as a linear function of the states."""
 
     A: np.ndarray
     B: np.ndarray
     C: np.ndarray
     unit_order: int
     units: int
+    vg_row: np.ndarray | None = None  # PCC voltage [V] as a row over the states
 
 
 def coupled_plant(design, net: GridNetwork, units: int | None = None) -> CoupledPlant:
@@ -167,7 +169,7 @@ def coupled_plant(design, net: GridNetwork, units: int | None = None) -> Coupled
         vg = (net.Rg_ohm * L2 * Srow + net.Lg_H * arow) / (L2 + N * net.Lg_H)
     for k in range(N):
         A[k * nf + i2, :] -= vg / L2
-    return CoupledPlant(A, B, C, nf, N)
+    return CoupledPlant(A, B, C, nf, N, vg)
 
 
 @dataclass(frozen=True)
@@ -187,11 +189,12 @@ class ExactVerdict:
         return self.verdict == "stable"
 
 
-def coupled_closed_loop_matrix(design, net: GridNetwork, units: int | None = None) -> np.ndarray:
+def coupled_closed_loop_matrix(design, net: GridNetwork, units: int | None = None, feedforward=None) -> np.ndarray:
     """Closed-loop state matrix of ``units`` identical sampled loops on the
     network: exact ZOH with the delay of the whole coupled plant, each unit
     with its own controller (the design's) and damping gain, all sampled
-    together."""
+    together; with ``feedforward`` (:class:`loopcheck.admittance.Feedforward`)
+    each unit adds gain * F(z) * vg[k] of the sampled PCC voltage."""
     cp = coupled_plant(design, net, units)
     N = cp.units
     Ts = design.sampling.Ts_s
@@ -209,12 +212,27 @@ def coupled_closed_loop_matrix(design, net: GridNetwork, units: int | None = Non
     Acl[:nd, nd:] = dp.B @ Cc
     Acl[nd:, :nd] = -Bc @ Fb
     Acl[nd:, nd:] = Ac
-    return Acl
+    if feedforward is None:
+        return Acl
+    Af, Bf, Cf, Df = feedforward.blocks(Ts)
+    Vg = np.zeros((1, nd))
+    Vg[0, : cp.A.shape[0]] = cp.vg_row  # vg[k] from the sampled continuous states
+    nf = N * Af.shape[0]
+    A2 = np.zeros((nd + nc + nf, nd + nc + nf))
+    A2[: nd + nc, : nd + nc] = Acl
+    ones = np.ones((N, 1))
+    A2[:nd, :nd] += dp.B @ (ones * Df[0, 0]) @ Vg
+    if nf:
+        A2[:nd, nd + nc:] = dp.B @ np.kron(I, Cf)
+        A2[nd + nc:, :nd] = np.kron(ones, Bf) @ Vg
+        A2[nd + nc:, nd + nc:] = np.kron(I, Af)
+    return A2
 
 
-def exact_verdict(design, net: GridNetwork, units: int | None = None, tol: float = TOLERANCE) -> ExactVerdict:
+def exact_verdict(design, net: GridNetwork, units: int | None = None, tol: float = TOLERANCE,
+                  feedforward=None) -> ExactVerdict:
     """Verdict from the eigenvalues of :func:`coupled_closed_loop_matrix`."""
-    Acl = coupled_closed_loop_matrix(design, net, units)
+    Acl = coupled_closed_loop_matrix(design, net, units, feedforward)
     r = float(np.max(np.abs(np.linalg.eigvals(Acl))))
     return ExactVerdict(classify(r, tol), r, net.units if units is None else int(units), Acl.shape[0])
 
@@ -310,7 +328,7 @@ def _verdict_from_count(stiff: str, passive: bool, ccw: int) -> tuple[bool, str]
     return True, "stable" if ccw == 0 else "unstable"
 
 
-def impedance_ratio_verdict(design, net: GridNetwork, units: int | None = None) -> ImpedanceVerdict:
+def impedance_ratio_verdict(design, net: GridNetwork, units: int | None = None, feedforward=None) -> ImpedanceVerdict:
     """Sun's impedance-ratio criterion with ``N Zg`` (N = units) and the
     baseband output admittance, counted along s = sigma + jw with
     sigma = 1e-7 fs (right of any lossless pole on the jw axis)."""
@@ -318,7 +336,7 @@ def impedance_ratio_verdict(design, net: GridNetwork, units: int | None = None) 
     netN = net.scaled(N)
     stiff, r = stiff_grid_verdict(design)
     passive = min(net.Rg_ohm, net.R_shunt_ohm) >= 0.0
-    model = admittance_model(design)
+    model = admittance_model(design, feedforward)
     fs = design.sampling.fs_hz
     sigma = CONTOUR_SIGMA_PER_FS * fs
 
@@ -412,7 +430,7 @@ class ImpedanceStudy:
     exact: the eigenvalue verdict with the network inside the exact model
     (None for measured data); source: "grid_network", "measured" or "grid"
     (the [grid] Lg and Rg when the case has no [grid_network] table);
-    curves: for the figure."""
+    curves: for the figure; feedforward: the grid-voltage feedforward or None."""
 
     passivity: object
     network: GridNetwork | None
@@ -422,9 +440,10 @@ class ImpedanceStudy:
     exact: ExactVerdict | None
     source: str
     curves: ImpedanceCurves
+    feedforward: object = None
 
 
-def study(design, net: GridNetwork | None, f_max_hz: float | None = None) -> ImpedanceStudy:
+def study(design, net: GridNetwork | None, f_max_hz: float | None = None, feedforward=None) -> ImpedanceStudy:
     """Passivity bands, impedance-ratio and eigenvalue verdicts for a design
     on a network (``None``: the design's own [grid] Lg and Rg).
 
@@ -437,18 +456,38 @@ def study(design, net: GridNetwork | None, f_max_hz: float | None = None) -> Imp
     if net is None:
         net = GridNetwork(design.grid.Lg_H, design.grid.Rg_ohm)
         source = "grid"
-    passivity = passivity_bands(design, f_max_hz=fs if f_max_hz is None else f_max_hz)
+    passivity = passivity_bands(design, f_max_hz=fs if f_max_hz is None else f_max_hz, feedforward=feedforward)
     N = net.units
     f = np.geomspace(1.0, 2.0 * fs, 4000)
     f = np.unique(np.concatenate([f, np.linspace(fs / 50, 2 * fs, 4000)]))
-    model = admittance_model(design)
+    model = admittance_model(design, feedforward)
     Yo = output_admittance(model, 2j * math.pi * f)
     if net.measured is not None:
         meas = read_measured_impedance(net.measured)
-        ratio = measured_verdict(design, meas, N)
+        ratio = measured_verdict(design, meas, N, feedforward=feedforward)
         Z = np.where((f >= meas.frequency_hz[0]) & (f <= meas.frequency_hz[-1]), N * meas.interpolate(f), np.nan)
-        return ImpedanceStudy(passivity, None, meas, N, ratio, None, "measured", ImpedanceCurves(f, Yo, Z, Z * Yo))
-    ratio = impedance_ratio_verdict(design, net)
-    exact = exact_verdict(design, net)
+        return ImpedanceStudy(passivity, None, meas, N, ratio, None, "measured", ImpedanceCurves(f, Yo, Z, Z * Yo),
+                              feedforward)
+    ratio = impedance_ratio_verdict(design, net, feedforward=feedforward)
+    exact = exact_verdict(design, net, feedforward=feedforward)
     Z = network_impedance(net.scaled(N), 2j * math.pi * f)
-    return ImpedanceStudy(passivity, net, None, N, ratio, exact, source, ImpedanceCurves(f, Yo, Z, Z * Yo))
+    return ImpedanceStudy(passivity, net, None, N, ratio, exact, source, ImpedanceCurves(f, Yo, Z, Z * Yo),
+                          feedforward)
+
+
+def read_feedforward(case):
+    """The case's ``[feedforward]`` table as a
+    :class:`loopcheck.admittance.Feedforward`, or None when it has none.
+    Keys: ``gain`` (ratio, default 1), ``cutoff`` (frequency of the
+    first-order low-pass, default none)."""
+    from .admittance import Feedforward
+    from .casefile import check_keys, read_quantity
+
+    if "feedforward" not in case.tables:
+        return None
+    t = case.tables["feedforward"]
+    w = case.where("feedforward")
+    check_keys(t, ("gain", "cutoff"), w)
+    gain = read_quantity(t, "gain", "ratio", w, default=1.0, nonnegative=True)
+    cutoff = read_quantity(t, "cutoff", "frequency", w, default=None, positive=True)
+    return Feedforward(gain, cutoff)

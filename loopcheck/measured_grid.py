@@ -166,7 +166,7 @@ class MeasuredVerdict:
 
 
 def measured_verdict(design, meas: MeasuredImpedance, units: int = 1, stiff_verdict: str | None = None,
-                     per_interval: int = 16, max_rounds: int = 30) -> MeasuredVerdict:
+                     per_interval: int = 16, max_rounds: int = 30, feedforward=None) -> MeasuredVerdict:
     """Count encirclements of -1 by N Zg Yo on the measured range (mirrored to
     negative frequencies; the curve is closed the short way outside the data).
     ``stiff_verdict`` is computed from the eigenvalues when not given."""
@@ -174,7 +174,7 @@ def measured_verdict(design, meas: MeasuredImpedance, units: int = 1, stiff_verd
 
     if stiff_verdict is None:
         stiff_verdict, _ = stiff_grid_verdict(design)
-    model = admittance_model(design)
+    model = admittance_model(design, feedforward)
     fd = meas.frequency_hz
     # sub-points between rows (log-spaced), then adaptive refinement
     t = np.linspace(0.0, 1.0, per_interval + 1)[:-1]

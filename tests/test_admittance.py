@@ -37,7 +37,7 @@ import pytest
 from scipy.integrate import simpson
 from scipy.linalg import expm
 
-from loopcheck.admittance import design_admittance, hold_response, passivity_bands
+from loopcheck.admittance import Feedforward, design_admittance, hold_response, passivity_bands
 from loopcheck.model import Control, Design, Filter, Grid, Sampling
 
 L1, C, L2 = 1.5e-3, 10e-6, 0.5e-3
@@ -54,7 +54,7 @@ def design(Kp=10.0, Hi=10.0, kind="P", Kr=0.0, delay=1.0, R1=0.0, R2=0.0, feedba
     )
 
 
-def floquet_admittance(d, f_hz, n_quad=801):
+def floquet_admittance(d, f_hz, n_quad=801, ff_gain=0.0, ff_cutoff_hz=None):
     """Exact component at f of -i2/vg for vg = e^{jwt}, by the periodic
     steady state of the sampled-data loop (independent of the module)."""
     s = 2j * math.pi * f_hz
@@ -101,7 +101,14 @@ def floquet_admittance(d, f_hz, n_quad=801):
     Msys[:n, n] = -(G_old / z + G_new)
     Msys[n, :n] = -row
     Msys[n, n] = 1.0
-    rhs[n] = row @ xp
+    # grid-voltage feedforward of the sample vg[k] = e^{jw k Ts} (amplitude 1)
+    # through y[k] = y[k-1] + a (vg[k] - y[k-1]), written out here
+    if ff_cutoff_hz is None:
+        ff = ff_gain
+    else:
+        a = 1 - math.exp(-2 * math.pi * ff_cutoff_hz * Ts)
+        ff = ff_gain * a / (1 - (1 - a) / z)
+    rhs[n] = row @ xp + ff
     sol = np.linalg.solve(Msys, rhs)
     W, U = sol[:n], sol[n]
     # w(tau) on [0, Ts): held U/z before lam Ts, U after; each piece on its
@@ -243,3 +250,30 @@ def test_bare_inductor_limit_is_passive_rl():
     Yp = 1 / (0.05 + s * L2 + 1 / (1 / (0.1 + s * L1) + s * C))
     assert np.allclose(design_admittance(d, f), Yp, rtol=1e-9)
     assert passivity_bands(d).passive
+
+
+@pytest.mark.parametrize("gain,cutoff", [(1.0, None), (0.8, 800.0)])
+def test_feedforward_admittance_equals_exact_floquet_component(gain, cutoff):
+    """With grid-voltage feedforward of the sampled PCC voltage (gain,
+    first-order low-pass) the baseband formula still equals the exact
+    component of the periodic steady state."""
+    d = design(kind="PR", Kp=12.0, Kr=400.0, Hi=8.0, R1=0.05)
+    ffw = Feedforward(gain, cutoff)
+    freqs = [7.0, 130.0, 1900.0, 4700.0]
+    got = design_admittance(d, freqs, feedforward=ffw)
+    for f, y in zip(freqs, got):
+        ref = floquet_admittance(d, f, ff_gain=gain, ff_cutoff_hz=cutoff)
+        assert abs(y - ref) <= 1e-6 * abs(ref) + 1e-9, (f, y, ref)
+
+
+def test_full_feedforward_removes_the_low_frequency_admittance():
+    """Common practice: full grid-voltage feedforward makes the converter
+    voltage follow the grid voltage, so at low frequency the current no
+    longer responds to it: with P control |Yo| falls from about 1/Kp to a
+    value proportional to f (ratio of 1 Hz to 2 Hz about 1/2)."""
+    d = design(Kp=10.0, Hi=5.0)
+    plain = design_admittance(d, [1.0])
+    ff = design_admittance(d, [1.0, 2.0], feedforward=Feedforward(1.0))
+    assert abs(plain[0]) == pytest.approx(1 / 10.0, rel=0.02)
+    assert abs(ff[0]) < 2e-3 * abs(plain[0])
+    assert abs(ff[0] / ff[1]) == pytest.approx(0.5, rel=0.01)

@@ -102,3 +102,24 @@ def test_bad_table_key_and_bad_figure_suffix(tmp_path):
     p.write_text(DEMO.read_text().replace('R_shunt = "20 mOhm"', 'R_shunt = "20 mOhm"\nunits = 0'))
     r = run(p)
     assert r.exit_code == 2 and "[grid_network] units:" in r.stderr
+
+
+def test_feedforward_table_reaches_both_verdicts(tmp_path):
+    """A [feedforward] table is read and used by both verdicts (compared with
+    the library called directly)."""
+    from loopcheck.admittance import Feedforward
+
+    p = tmp_path / "ff.toml"
+    p.write_text(DEMO.read_text() + '\n[feedforward]\ngain = 1\ncutoff = "2 kHz"\n')
+    r = run(p, "--json")
+    assert r.exit_code == 0, r.stderr
+    rec = json.loads(r.stdout)
+    assert rec["feedforward"] == {"gain": 1.0, "cutoff_hz": 2000.0}
+    case = read_case(DEMO)
+    net = GridNetwork(case.design.grid.Lg_H, 0.05, 8e-6, 0.02)
+    ev = exact_verdict(case.design, net, feedforward=Feedforward(1.0, 2000.0))
+    assert math.isclose(rec["eigenvalue"]["spectral_radius"], ev.spectral_radius, rel_tol=1e-12)
+    assert "grid-voltage feedforward" in run(p).stdout
+    p.write_text(DEMO.read_text() + '\n[feedforward]\ngain = 1\ncutof = "2 kHz"\n')
+    r = run(p)
+    assert r.exit_code == 2 and "[feedforward] cutof: unknown key" in r.stderr
