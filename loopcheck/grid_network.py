@@ -352,9 +352,9 @@ def impedance_ratio_verdict(design, net: GridNetwork, units: int | None = None, 
     applicable, verdict = _verdict_from_count(stiff, passive, ccw)
     j = int(np.argmin(np.abs(f)))
     note = ""
-    if applicable and ccw > 0:
+    if applicable and ccw > 0:  # impossible for a stable inverter on a passive grid: numerical trouble
         note = "more counter-clockwise than clockwise turns: the count is not trustworthy"
-        verdict = "not applicable"
+        applicable, verdict = False, "not applicable"
     return ImpedanceVerdict(stiff, r, passive, -ccw, resid, applicable, verdict, float(np.abs(f[j])),
                             float(w[j] / (2 * math.pi)), N, note)
 
