@@ -57,6 +57,8 @@ def impedance_figure(design, result, *, title: str = ""):
     grid_label = f"grid 1/({N} Zg)" if N > 1 else "grid 1/Zg"
     if result.measured is not None:
         grid_label += " (measured)"
+    elif not np.any(np.abs(cu.Zg_ohm) > 0):
+        grid_label += " (Zg = 0: stiff grid, off the scale)"
     for ax in (ax_m, ax_p):
         for b in p.bands:
             ax.axvspan(b.low_hz, b.high_hz, color=c["vermillion"], alpha=0.12, lw=0)

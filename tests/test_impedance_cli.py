@@ -123,3 +123,15 @@ def test_feedforward_table_reaches_both_verdicts(tmp_path):
     p.write_text(DEMO.read_text() + '\n[feedforward]\ngain = 1\ncutof = "2 kHz"\n')
     r = run(p)
     assert r.exit_code == 2 and "[feedforward] cutof: unknown key" in r.stderr
+
+
+def test_figure_carries_bands_markers_and_caution(tmp_path):
+    """The SVG figure names the non-passive band, the critical frequency,
+    fs/2, the verdicts and the safety caution."""
+    fig = tmp_path / "imp.svg"
+    r = run(DEMO, "-o", fig)
+    assert r.exit_code == 0, r.stderr
+    svg = fig.read_text()
+    for text in ("Re Yo &lt; 0 (not passive)", "critical frequency 1667 Hz", "fs/2 = 5000 Hz",
+                 "Impedance ratio: unstable", "eigenvalues: unstable", "lethal voltages"):
+        assert text in svg, text
