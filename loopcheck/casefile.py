@@ -67,7 +67,7 @@ __all__ = [
 #: The tables every case file has.
 CORE_TABLES = ("filter", "grid", "sampling", "control")
 #: Optional tables, kept raw in :attr:`Case.tables` for the modules that read them.
-OPTIONAL_TABLES = ("map", "tolerance", "firmware", "scenario", "targets", "pwm", "harmonics", "report")
+OPTIONAL_TABLES = ("map", "tolerance", "firmware", "scenario", "targets", "pwm", "harmonics", "report", "grid_network", "feedforward")
 #: Plain keys allowed at the top of the file.
 TOP_KEYS = ("name", "description")
 #: Largest whole number in a list read by :func:`read_int_list`.

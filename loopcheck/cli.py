@@ -182,6 +182,9 @@ app.command("map")(cmd_map.map_command)
 from loopcheck import cmd_grid  # noqa: E402
 
 app.command("grid")(cmd_grid.grid)
+from loopcheck import cmd_impedance  # noqa: E402
+
+app.command("impedance")(cmd_impedance.impedance)
 from loopcheck import cmd_pick  # noqa: E402
 
 app.command("pick")(cmd_pick.pick)

@@ -70,7 +70,8 @@ class DiscretePlant:
 def discretize_plant(A, B, C, Ts_s, delay: float) -> DiscretePlant:
     """Exact ZOH discretisation with computation delay ``delay`` in samples (0..1).
 
-    A [..., n, n], B [..., n, 1], C [..., p, n]; Ts_s [s] broadcasts over the
+    A [..., n, n], B [..., n, m] (m inputs, each held and delayed alike; the
+    delayed inputs are the last m states), C [..., p, n]; Ts_s [s] broadcasts over the
     batch. See the module docstring for the model and its references."""
     if not 0.0 <= delay <= 1.0:
         raise ValueError("delay must lie in 0..1 sampling periods")
@@ -89,13 +90,14 @@ def discretize_plant(A, B, C, Ts_s, delay: float) -> DiscretePlant:
     Phi = E_new @ E_old
     G_old = E_new @ G_old0
     batch = Phi.shape[:-2]
-    Ad = np.zeros(batch + (n + 1, n + 1))
+    m = B.shape[-1]  # one delay state per input (m = 1 for one converter)
+    Ad = np.zeros(batch + (n + m, n + m))
     Ad[..., :n, :n] = Phi
     Ad[..., :n, n:] = G_old
-    Bd = np.zeros(batch + (n + 1, 1))
-    Bd[..., :n, :] = np.broadcast_to(G_new, batch + (n, 1))
-    Bd[..., n, 0] = 1.0
+    Bd = np.zeros(batch + (n + m, m))
+    Bd[..., :n, :] = np.broadcast_to(G_new, batch + (n, m))
+    Bd[..., n:, :] = np.eye(m)
     p = C.shape[-2]
-    Cd = np.zeros(batch + (p, n + 1))
+    Cd = np.zeros(batch + (p, n + m))
     Cd[..., :, :n] = C
     return DiscretePlant(Ad, Bd, Cd, Ts, delay)

@@ -90,8 +90,16 @@ def build_loop(design, Lg_H=None, Hi_V_per_A=None, Kp_V_per_A=None) -> Loop:
 
     Lg_H [H], Hi_V_per_A [V/A] and Kp_V_per_A [V/A] override the design's
     values (arrays allowed: the result then carries that batch)."""
+    return loop_from_plant(design, design_plant(design, Lg_H), Hi_V_per_A, Kp_V_per_A)
+
+
+def loop_from_plant(design, p, Hi_V_per_A=None, Kp_V_per_A=None) -> Loop:
+    """The sampled loop of a design around a given continuous plant ``p``
+    (a :class:`loopcheck.plant.PlantSS` with output rows i1, i2, ic), e.g.
+    the filter with a grid network's states appended: the network is then
+    inside the exact ZOH discretisation. Hi_V_per_A [V/A] and Kp_V_per_A
+    [V/A] override the design's values."""
     Ts = design.sampling.Ts_s
-    p = design_plant(design, Lg_H)
     dplant = discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay)
     Hi = design.control.Hi_V_per_A if Hi_V_per_A is None else Hi_V_per_A
     Ai = close_damping_loop(dplant, Hi)
