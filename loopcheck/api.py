@@ -79,11 +79,15 @@ def analyse(case_or_design):
 
 
 def verdict_over_range(case_or_design):
-    """Verdict over the declared Lg range and tolerance corners:
-    a :class:`loopcheck.range_verdict.RangeVerdict`."""
-    from .range_verdict import range_verdict as _rv
+    """Verdict over everything the case declares (Lg or SCR range, tolerance
+    corners, grid network, feedforward): a
+    :class:`loopcheck.range_verdict.RangeVerdict`. A bare design: its own
+    Lg range only."""
+    from .range_verdict import case_range_verdict, range_verdict
 
-    return _rv(_design(case_or_design), _tolerance(case_or_design))
+    if hasattr(case_or_design, "tables"):
+        return case_range_verdict(case_or_design)
+    return range_verdict(case_or_design)
 
 
 def _spec(case_or_design, x, y, x_range, y_range, x_points, y_points, metrics):

@@ -477,13 +477,14 @@ def progress(total: float, description: str, quiet: bool = False) -> Iterator[Ca
         yield lambda n=1: bar.advance(task, n)
 
 
-def case_tolerance(case):
-    """The case's ``[tolerance]`` table as a ToleranceSpec (empty when
-    absent); a bad table prints one line and exits 2."""
+def case_verdict(case):
+    """The case's :class:`loopcheck.range_verdict.RangeVerdict` over all it
+    declares (Lg or SCR range, tolerances, grid network, feedforward); a bad
+    table prints one line and exits 2."""
     from loopcheck.casefile import CaseError
-    from loopcheck.tolerance import parse_tolerance_table
+    from loopcheck.range_verdict import case_range_verdict
 
     try:
-        return parse_tolerance_table((case.tables or {}).get("tolerance"), case.where("tolerance"), case.design)
+        return case_range_verdict(case)
     except CaseError as exc:
         fail(str(exc))

@@ -9,7 +9,7 @@ import typer
 
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
-    case_tolerance,
+    case_verdict,
     check_figure_output,
     fail,
     json_line,
@@ -73,15 +73,14 @@ def check(
     from loopcheck.analysis import analyse
     from loopcheck.closed_loop import characterise
     from loopcheck.loop import build_loop
-    from loopcheck.range_verdict import headline, range_verdict
+    from loopcheck.range_verdict import headline
     from loopcheck.summary import format_summary
 
-    specs = [case_tolerance(case) for case in loaded]  # bad [tolerance] tables fail before any output
+    verdicts = [case_verdict(case) for case in loaded]  # bad optional tables fail before any output
     any_unstable = False
-    for i, (case, spec) in enumerate(zip(loaded, specs)):
+    for i, (case, rv) in enumerate(zip(loaded, verdicts)):
         print_warnings(case)
         result = analyse(case.design)
-        rv = range_verdict(case.design, spec)
         loop = build_loop(case.design)
         closed = characterise(case.design, result, loop)
         if bode is not None:

@@ -11,7 +11,7 @@ import typer
 from loopcheck.cli_common import (
     EXIT_UNSTABLE,
     atomic_write_text,
-    case_tolerance,
+    case_verdict,
     check_output,
     fail,
     json_line,
@@ -92,9 +92,7 @@ def export(
     except FirmwareFormatError as exc:
         fail(f"{where} {exc.key}: {exc}")
 
-    from loopcheck.range_verdict import range_verdict
-
-    rv = range_verdict(loaded.design, case_tolerance(loaded))
+    rv = case_verdict(loaded)
     if out_dir is not None:
         stem = Path(loaded.path).stem
         header = out_dir / f"{stem}_controller.h"

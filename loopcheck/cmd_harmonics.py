@@ -9,7 +9,7 @@ from typing import Annotated, Optional
 import typer
 
 from loopcheck.cli_common import (
-    case_tolerance,
+    case_verdict,
     check_figure_output,
     fail,
     json_line,
@@ -85,9 +85,9 @@ def harmonics(
 
     loop = analyse(design)
     loop_note = unstable_loop_note(loop)
-    from loopcheck.range_verdict import case_verdict_line, headline, range_verdict
+    from loopcheck.range_verdict import case_verdict_line, headline
 
-    rv = range_verdict(design, case_tolerance(loaded))
+    rv = case_verdict(loaded)
 
     files = []
     if output is not None:

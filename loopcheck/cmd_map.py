@@ -9,7 +9,7 @@ import typer
 
 from loopcheck.cli_common import (
     atomic_write_text,
-    case_tolerance,
+    case_verdict,
     check_figure_output,
     check_output,
     fail,
@@ -103,9 +103,9 @@ def map_command(
             atomic_write_text(csv_path, csv_text(smap))
         except OSError as exc:
             write_failure("--csv", csv_path, exc)
-    from loopcheck.range_verdict import case_verdict_line, headline, range_verdict
+    from loopcheck.range_verdict import case_verdict_line, headline
 
-    rv = range_verdict(design, case_tolerance(loaded))
+    rv = case_verdict(loaded)
     if json_output:
         typer.echo(json_line({**json_record(smap, loaded.path, output, csv_path), "headline": headline(rv),
                               "range_verdict": rv.to_dict()}))

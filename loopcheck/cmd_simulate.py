@@ -9,7 +9,7 @@ from typing import Annotated, Optional
 import typer
 
 from loopcheck.cli_common import (
-    case_tolerance,
+    case_verdict,
     check_figure_output,
     check_option_values,
     check_simulation_size,
@@ -232,9 +232,9 @@ def simulate(
 
     verdict = classify(abs(rc.dominant_pole))
     verdict_c = classify(abs(rc_c.dominant_pole)) if rc_c is not None else None
-    from loopcheck.range_verdict import case_verdict_line, headline, range_verdict
+    from loopcheck.range_verdict import case_verdict_line, headline
 
-    rv = range_verdict(design, case_tolerance(loaded))
+    rv = case_verdict(loaded)
     if json_output:
         record = {
             "case": loaded.path,

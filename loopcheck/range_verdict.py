@@ -33,7 +33,13 @@ class RangeVerdict:
     single-point range);
     corners: number of tolerance corners checked; unstable_corners: labels
     of the corners not stable somewhere over the range (at the nominal Lg
-    without a range)."""
+    without a range);
+    network_verdict: with a declared grid network (``[grid_network]``:
+    shunt capacitance, N paralleled units, or a measured impedance) and/or
+    grid-voltage feedforward, the verdict there ("stable", "marginal",
+    "unstable"; None when none is declared); network_text: what that
+    verdict is of, in words (components and units, or the measured table's
+    frequency-response count)."""
 
     Lg_range_H: tuple[float, float] | None
     nominal_stable: bool
@@ -41,16 +47,20 @@ class RangeVerdict:
     unstable_share: float
     corners: int
     unstable_corners: tuple[str, ...]
+    network_verdict: str | None = None
+    network_text: str = ""
 
     @property
     def declared(self) -> bool:
-        """True when the case declares a range or tolerances."""
-        return self.Lg_range_H is not None or self.corners > 0
+        """True when the case declares a range, tolerances or a grid network."""
+        return self.Lg_range_H is not None or self.corners > 0 or self.network_verdict is not None
 
     @property
     def stable_everywhere(self) -> bool:
-        """Stable at the nominal point, over the whole range and at every corner."""
-        return self.nominal_stable and not self.unstable_Lg_H and not self.unstable_corners
+        """Stable at the nominal point, over the whole range, at every corner
+        and on the declared grid network."""
+        return (self.nominal_stable and not self.unstable_Lg_H and not self.unstable_corners
+                and self.network_verdict in (None, "stable"))
 
     def to_dict(self) -> dict:
         return {
@@ -61,6 +71,8 @@ class RangeVerdict:
             "unstable_share": self.unstable_share,
             "corners": self.corners,
             "unstable_corners": list(self.unstable_corners),
+            "network_verdict": self.network_verdict,
+            "network": self.network_text or None,
             "headline": headline(self),
         }
 
@@ -76,10 +88,39 @@ def _complement(intervals, lo: float, hi: float) -> tuple[tuple[float, float], .
     return tuple(out)
 
 
-def range_verdict(design: Design, tolerance=None) -> RangeVerdict:
-    """Verdict over the design's declared Lg range (``design.grid.Lg_range_H``)
-    and the corners of ``tolerance`` (a :class:`loopcheck.tolerance.ToleranceSpec`
-    or None); see the module docstring."""
+def _network_verdict(design, network, feedforward) -> tuple[str | None, str]:
+    """(verdict, words) on a declared grid network and/or feedforward."""
+    if network is None and feedforward is None:
+        return None, ""
+    from .grid_network import GridNetwork, exact_verdict, impedance_ratio_verdict  # noqa: F401
+    from .units import format_quantity
+
+    net = network if network is not None else GridNetwork(design.grid.Lg_H, design.grid.Rg_ohm)
+    parts = []
+    if net.measured is not None:
+        from .measured_grid import measured_verdict, read_measured_impedance
+
+        r = measured_verdict(design, read_measured_impedance(net.measured), net.units, feedforward=feedforward)
+        ok = all(c for _, c in r.conditions)
+        words = f"the measured grid impedance (frequency-response Nyquist count{'' if ok else ', validity conditions NOT all met'})"
+        return r.verdict, words
+    if net.has_shunt:
+        parts.append(f"shunt C {format_quantity(net.C_shunt_F, 'F')}")
+    if net.units > 1:
+        parts.append(f"{net.units} paralleled units")
+    if feedforward is not None:
+        parts.append("grid-voltage feedforward")
+    ev = exact_verdict(design, net, feedforward=feedforward)
+    words = "the declared grid network" + (f" ({', '.join(parts)})" if parts else "")
+    return ev.verdict, f"{words}, spectral radius {ev.spectral_radius:.6f}"
+
+
+def range_verdict(design: Design, tolerance=None, network=None, feedforward=None) -> RangeVerdict:
+    """Verdict over the design's declared Lg range (``design.grid.Lg_range_H``),
+    the corners of ``tolerance`` (a :class:`loopcheck.tolerance.ToleranceSpec`
+    or None) and, when given, a grid network (:class:`loopcheck.grid_network.GridNetwork`,
+    exact eigenvalues with the network, all units and ``feedforward`` in the
+    sampled model); see the module docstring."""
     import numpy as np
 
     from .tolerance import ComponentValues, ToleranceSpec, corner_values
@@ -112,8 +153,21 @@ def range_verdict(design: Design, tolerance=None) -> RangeVerdict:
                     and sc.stable_intervals_H[0][1] >= hi)
             if not full:
                 bad_corners.append(label)
+    net_v, net_text = _network_verdict(design, network, feedforward)
     return RangeVerdict(None if rng is None else (lo, hi), nominal_stable, unstable, float(share),
-                        len(labels), tuple(bad_corners))
+                        len(labels), tuple(bad_corners), net_v, net_text)
+
+
+def case_range_verdict(case) -> RangeVerdict:
+    """:func:`range_verdict` of a case with everything it declares: Lg or SCR
+    range, ``[tolerance]`` corners, ``[grid_network]`` and ``[feedforward]``.
+    Raises :class:`loopcheck.casefile.CaseError` for a bad table."""
+    from .grid_network import read_feedforward, read_grid_network
+    from .tolerance import parse_tolerance_table
+
+    tables = getattr(case, "tables", {}) or {}
+    spec = parse_tolerance_table(tables.get("tolerance"), case.where("tolerance"), case.design)
+    return range_verdict(case.design, spec, read_grid_network(case), read_feedforward(case))
 
 
 def _mh(v: float) -> str:
@@ -134,6 +188,9 @@ def range_text(rv: RangeVerdict) -> str:
             parts.append(f"NOT STABLE over {pieces} ({100 * rv.unstable_share:.0f} % of {rng})")
         else:
             parts.append(f"stable over all of {rng}")
+    if rv.network_verdict is not None:
+        word = "stable" if rv.network_verdict == "stable" else f"NOT STABLE ({rv.network_verdict})"
+        parts.append(f"{word} on {rv.network_text}")
     if rv.corners:
         where = "over the Lg range" if rv.Lg_range_H is not None else "at the nominal Lg"
         n = len(rv.unstable_corners)

@@ -342,7 +342,7 @@ def verdict_banner(analysis, range_verdict=None) -> str:
         from loopcheck.range_verdict import range_text
 
         at = " at the nominal Lg"
-        rest = f" Over the case's declared range: {range_text(range_verdict)}."
+        rest = f" Over what the case declares: {range_text(range_verdict)}."
         if state == "stable" and not range_verdict.stable_everywhere:
             state, word, glyph = "unstable", "NOT STABLE OVER ITS RANGE", "[XX]"
             meaning = "Stable at the nominal point only."
@@ -358,10 +358,9 @@ def verdict_banner(analysis, range_verdict=None) -> str:
 def report_range_verdict(ctx: "ReportContext"):
     """The :class:`loopcheck.range_verdict.RangeVerdict` of the report's case (computed once)."""
     if "range_verdict" not in ctx.shared:
-        from loopcheck.range_verdict import range_verdict
+        from loopcheck.range_verdict import case_range_verdict
 
-        _, spec, _ = _grid_inputs(ctx)
-        ctx.shared["range_verdict"] = range_verdict(ctx.design, spec)
+        ctx.shared["range_verdict"] = case_range_verdict(ctx.case)
     return ctx.shared["range_verdict"]
 
 

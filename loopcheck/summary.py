@@ -148,7 +148,7 @@ def format_summary(case, analysis, range_verdict=None, closed_loop=None) -> str:
         from loopcheck.range_verdict import range_text
 
         verdict_lines[0] += " at the nominal Lg"
-        verdict_lines.append("over the case's declared range: " + range_text(range_verdict))
+        verdict_lines.append("over what the case declares: " + range_text(range_verdict))
     out += _block("verdict", verdict_lines)
     if closed_loop is not None:
         cl_lines = []

@@ -127,3 +127,47 @@ def test_simulate_and_harmonics_state_the_case_verdict(command):
     assert r.stdout.splitlines()[1].startswith("  case verdict: NOT STABLE")
     rec = json.loads(CliRunner().invoke(app, [command, str(BENCH), "--json"], env=ENV).stdout)
     assert rec["range_verdict"]["stable_everywhere"] is False and rec["headline"].startswith("NOT STABLE")
+
+
+def test_a_declared_grid_network_decides_the_headline():
+    # The PFC-capacitor demo: stable on its inductive grid, unstable with the
+    # capacitor bank. Oracle: the closed loop rebuilt independently with the
+    # bank's states in the continuous plant, sampled by python-control
+    # (circuit equations: Kirchhoff's laws, common practice; ZOH with one
+    # sample of delay as an explicit state), eigenvalues decide.
+    import control as ct
+
+    case = read_case(str(CASES / "commercial-30kva-pfc-capacitor.toml"))
+    d = case.design
+    f, g, c = d.filter, d.grid, d.control
+    net = case.tables["grid_network"]
+    from loopcheck.units import parse_quantity
+
+    Cs = parse_quantity(net["C_shunt"], "capacitance")
+    Rs = parse_quantity(net["R_shunt"], "resistance")
+    Rg = parse_quantity(net["Rg"], "resistance")
+    # states: i1, vc, i2, vs (shunt capacitor), ig (grid inductor); input vi
+    L1, C, L2, R1, R2, Lg = f.L1_H, f.C_F, f.L2_H, f.R1_ohm, f.R2_ohm, g.Lg_H
+    # PCC voltage vp = vs + Rs (i2 - ig)
+    A = np.array([
+        [-R1 / L1, -1 / L1, 0, 0, 0],
+        [1 / C, 0, -1 / C, 0, 0],
+        [0, 1 / L2, -(R2 + Rs) / L2, -1 / L2, Rs / L2],
+        [0, 0, 1 / Cs, 0, -1 / Cs],
+        [0, 0, Rs / Lg, 1 / Lg, -(Rg + Rs) / Lg],
+    ])
+    B = np.array([[1 / L1], [0], [0], [0], [0]])
+    Cm = np.array([[0, 0, 1, 0, 0], [1, 0, -1, 0, 0]])  # i2, ic
+    Ts = d.sampling.Ts_s
+    Pd = ct.series(ct.ss(ct.tf([1.0], [1.0, 0.0], Ts)), ct.sample_system(ct.ss(A, B, Cm, np.zeros((2, 1))), Ts, "zoh"))
+    inner = ct.feedback(Pd, ct.ss([], [], [], [[0.0, c.Hi_V_per_A]], Ts))
+    from reference_loop import controller
+
+    cl = ct.feedback(ct.series(controller(ct, d), inner[0, 0]), 1)
+    assert spectral_radius(cl) > 1.0 and _ref_stable(d, g.Lg_H)
+    rv = range_verdict(d)  # the inductive grid alone: stable
+    assert rv.stable_everywhere
+    r = CliRunner().invoke(app, ["check", str(CASES / "commercial-30kva-pfc-capacitor.toml"), "--json"], env=ENV)
+    rec = json.loads(r.stdout)
+    assert rec["verdict"] == "stable" and rec["range_verdict"]["network_verdict"] == "unstable"
+    assert rec["headline"].startswith("NOT STABLE")
