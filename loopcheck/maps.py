@@ -518,11 +518,13 @@ def crossing_gains(p0: np.ndarray, p1: np.ndarray) -> list[np.ndarray]:
 @dataclass
 class _LineIntervals:
     """Verdict pieces of one line: boundaries (ascending) and whether the
-    piece below the first boundary is stable; method "exact" or "refined"."""
+    piece below the first boundary is stable; method "exact" or "refined";
+    path: "modal" or "polynomial" (see :func:`gain_lines`)."""
 
     boundaries: np.ndarray
     first_stable: bool
     method: str
+    path: str = "modal"
 
     def intervals(self, lo: float, hi: float) -> tuple:
         edges = [lo] + list(self.boundaries) + [hi]
@@ -793,7 +795,7 @@ def _refined_lines(evaluate, stable, y, span: float) -> list[_LineIntervals]:
     ]
 
 
-def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
+def _gain_lines_poly(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
     """Stability along lines ``A(y) = A0 + y A1`` (``A0, A1 [m, n, n]``, A1 of
     rank one; y ascending grid of the gain).
 
@@ -833,6 +835,246 @@ def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = 
             redo = _refined_lines(lambda li, yy: evaluate(kw[li], yy), radius[:, kw] < 1.0 - tol, y, hi - lo)
             for i, ln in zip(kw, redo):
                 lines[i] = ln
+    return lines, radius
+
+
+# ---------------------------------------------------------------------------
+# the modal path along a gain: no monomial coefficients
+# ---------------------------------------------------------------------------
+
+#: Eigenvector-matrix condition number above which a line's modal form is
+#: not trusted (the line then takes the polynomial path).
+MODAL_COND_LIMIT = 1e10
+#: Second singular value of A1 relative to the first above which A1 does not
+#: count as rank one (the line then takes the polynomial path).
+RANK_ONE_TOL = 1e-9
+
+
+@dataclass(frozen=True, eq=False)
+class _Modal:
+    """Lines ``A(y) = A0 + y A1`` with ``A1 = u v^T`` in modal form around a
+    base gain: ``A(base) = V diag(mu) V^-1`` (after diagonal balancing),
+    residues ``r = (v^T V) o (V^-1 u)``, so that ``det(zI - A(y)) =
+    prod_k (z - mu_k) (1 - (y - base) sum_k r_k / (z - mu_k))``.
+
+    mu, r: ``[m, n]`` complex; base: ``[m]`` [y unit]; cond: eigenvector
+    condition number ``[m]``; ok: lines whose modal form is usable."""
+
+    mu: np.ndarray
+    r: np.ndarray
+    base: np.ndarray
+    cond: np.ndarray
+    ok: np.ndarray
+
+
+def _rank_one(A1: np.ndarray):
+    """``(u [m, n], v [m, n], ok [m])`` with ``A1 ~ u v^T``; ok where the
+    second singular value is below :data:`RANK_ONE_TOL` of the first."""
+    U, sv, Vt = np.linalg.svd(A1)
+    u = U[:, :, 0] * sv[:, :1]
+    v = Vt[:, 0, :]
+    ok = sv[:, 0] > 0
+    if sv.shape[1] > 1:
+        ok &= sv[:, 1] <= RANK_ONE_TOL * sv[:, 0]
+    return u, v, ok
+
+
+def _balance(A: np.ndarray, sweeps: int = 20):
+    """Diagonal balancing of a stack ``A [m, n, n]`` by powers of two (the
+    row/column norm equalisation of Parlett & Reinsch, "Balancing a matrix
+    for calculation of eigenvalues and eigenvectors", Numer. Math. 13,
+    1969, as in LAPACK xGEBAL; from memory). Returns ``(D^-1 A D, d)`` with
+    ``D = diag(d)``; the eigenvalues are unchanged, the eigenvector matrix
+    of the result is usually far better conditioned when the states have
+    very different units."""
+    A = np.array(A, dtype=float)
+    m, n = A.shape[0], A.shape[-1]
+    d = np.ones((m, n))
+    absA = np.abs(A)
+    diag = np.arange(n)
+    absA[:, diag, diag] = 0.0
+    for _ in range(sweeps):
+        changed = False
+        for i in range(n):
+            c = absA[:, :, i].sum(axis=1)
+            r = absA[:, i, :].sum(axis=1)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                f = np.exp2(np.round(0.5 * np.log2(r / c)))
+            good = (c > 0) & (r > 0) & np.isfinite(f) & (f != 1.0)
+            good &= c * f + r / f < 0.95 * (c + r)
+            if not good.any():
+                continue
+            changed = True
+            f = np.where(good, f, 1.0)
+            absA[:, :, i] *= f[:, None]
+            absA[:, i, :] /= f[:, None]
+            A[:, :, i] *= f[:, None]
+            A[:, i, :] /= f[:, None]
+            d[:, i] *= f
+        if not changed:
+            break
+    return A, d
+
+
+def _modal_form(A0: np.ndarray, A1: np.ndarray, lo: float, hi: float) -> _Modal:
+    """Modal form of the lines (see :class:`_Modal`), balanced; the base
+    gain is the lower end of the range, or the middle or the upper end
+    where the eigenvectors there are better conditioned."""
+    m, n = A0.shape[0], A0.shape[-1]
+    u, v, rank_ok = _rank_one(A1)
+    mu = np.zeros((m, n), dtype=complex)
+    r = np.zeros((m, n), dtype=complex)
+    base = np.full(m, lo)
+    cond = np.full(m, np.inf)
+    todo = np.arange(m)
+    for b in (lo, 0.5 * (lo + hi), hi):
+        if todo.size == 0:
+            break
+        Ab, dd = _balance(A0[todo] + b * A1[todo])
+        lam, V = np.linalg.eig(Ab)
+        with np.errstate(all="ignore"):
+            c = np.linalg.cond(V)
+        good = np.isfinite(c) & (c < MODAL_COND_LIMIT)
+        k = todo[good]
+        if k.size:
+            Vg = V[good]
+            a = np.linalg.solve(Vg, (u[k] / dd[good])[:, :, None])[:, :, 0]
+            bb = ((v[k] * dd[good])[:, None, :] @ Vg)[:, 0, :]
+            mu[k], r[k], base[k], cond[k] = lam[good], a * bb, b, c[good]
+        todo = todo[~good]
+    ok = rank_ok & np.isfinite(cond)
+    return _Modal(mu, r, base, cond, ok)
+
+
+def _modal_G(mu: np.ndarray, r: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """``G(z) = sum_k r_k / (z - mu_k)`` for lines ``mu, r [S, n]`` at
+    ``z [S, F]`` (:func:`loopcheck.map_kernels.modal_response`)."""
+    from .map_kernels import modal_response
+
+    return modal_response(mu, r, z)
+
+
+def _modal_crossing_gains(md: _Modal, lines: np.ndarray) -> list[np.ndarray]:
+    """Candidate gains of the given lines where a closed-loop root is on the
+    unit circle: ``y = base + 1/G(e^{jw})`` at the real crossings of G
+    (sign changes of Im G bracketed on a frequency grid clustered around
+    the poles near the circle, refined by regula falsi) and at z = +-1
+    (D-decomposition in the frequency domain; matrix determinant lemma).
+    Spurious values are harmless (every piece is classified by
+    eigenvalues); a crossing pair narrower than the grid could be missed,
+    which the caller's grid check detects."""
+    m = lines.size
+    mu, r, base = md.mu[lines], md.r[lines], md.base[lines]
+    near = (np.abs(mu) > 0.5) & (mu.imag > 1e-12)
+    ang = np.where(near, np.abs(np.angle(mu)), np.nan)
+    grid = np.unique(np.concatenate([np.geomspace(1e-6, math.pi, _N_LOG), np.linspace(0.0, math.pi, 2 * _N_LIN + 1)[1:]]))
+    offs = np.concatenate([1.0 - _CLUSTER[::-1], 1.0 + _CLUSTER])
+    wc = (ang[:, :, None] * offs[None, None, :]).reshape(m, -1)
+    wc = np.where(np.isfinite(wc) & (wc > 0) & (wc < math.pi), wc, math.pi)
+    w = np.sort(np.concatenate([np.broadcast_to(grid, (m, grid.size)), wc], axis=1), axis=1)
+    g = _modal_G(mu, r, np.exp(1j * w))
+    with np.errstate(all="ignore"):
+        h = g.imag / np.abs(g)
+    fin = np.isfinite(h)
+    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+
+    def fh(li, x):
+        val = _modal_G(mu[li], r[li], np.exp(1j * np.asarray(x))[:, None])[:, 0]
+        with np.errstate(all="ignore"):
+            return val.imag / np.abs(val)
+
+    wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+    val = _modal_G(mu[ii], r[ii], np.exp(1j * wr)[:, None])[:, 0]
+    pts, gains = [], []
+    with np.errstate(all="ignore"):
+        ok = np.isfinite(val) & (np.abs(val.imag) <= 1e-7 * np.abs(val)) & (np.abs(val) > 0)
+        pts.append(ii[ok])
+        gains.append(base[ii[ok]] + 1.0 / val.real[ok])
+        for z0 in (1.0, -1.0):
+            g0 = _modal_G(mu, r, np.full((m, 1), z0, dtype=complex))[:, 0]
+            ok0 = np.isfinite(g0) & (np.abs(g0) > 0)
+            pts.append(np.nonzero(ok0)[0])
+            gains.append(base[ok0] + 1.0 / g0.real[ok0])
+    pts, gains = np.concatenate(pts), np.concatenate(gains)
+    order = np.argsort(pts, kind="stable")
+    split = np.searchsorted(pts[order], np.arange(m + 1))
+    return [gains[order[split[i] : split[i + 1]]] for i in range(m)]
+
+
+def _modal_radius(md: _Modal, lines: np.ndarray, A0, A1, y: np.ndarray, progress: ProgressFn | None = None):
+    """Spectral radius ``[len(y), S]`` of the given lines at the grid
+    values y (ascending), by following every closed-loop root in the
+    product form of :class:`_Modal` (no polynomial coefficients; see
+    :func:`loopcheck.map_kernels.follow_roots`: predictor, Newton steps,
+    trace checks). Where a line fails a check its roots are re-seeded from
+    the eigenvalues of ``A0 + y A1`` at that grid value and followed on
+    from there. Returns ``(radius, reseeded)``, the second the number of
+    re-seeded grid values."""
+    from .map_kernels import follow_roots
+
+    mu, r, base = md.mu[lines], md.r[lines], md.base[lines]
+    S = mu.shape[0]
+    out = np.empty((y.size, S))
+    todo = np.arange(S)
+    start = np.zeros(S, dtype=np.int64)
+    reseeded = 0
+    while todo.size:
+        seeds = np.linalg.eigvals(A0[lines[todo]] + y[start[todo]][:, None, None] * A1[lines[todo]])
+        sub = np.empty((y.size, todo.size))
+        fail = follow_roots(mu[todo], r[todo], base[todo], y, seeds, start[todo], sub)
+        for col, i in enumerate(todo):
+            hi = fail[col] if fail[col] >= 0 else y.size
+            out[start[i] : hi, i] = sub[start[i] : hi, col]
+        again = fail >= 0
+        todo, start = todo[again], start.copy()
+        start[todo] = fail[again]
+        reseeded += todo.size
+    if progress is not None:
+        progress(1.0)
+    return out, reseeded
+
+
+def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
+    """Stability along lines ``A(y) = A0 + y A1`` (``A0, A1 [m, n, n]``, A1 of
+    rank one; y ascending grid of the gain).
+
+    Returns ``(lines, radius)``: per line a :class:`_LineIntervals` with the
+    exact boundaries (D-decomposition, see the module docstring) over
+    [y[0], y[-1]], and the spectral radius ``[len(y), m]``.
+
+    First the modal path (:func:`_modal_form`): candidate gains from the
+    frequency response in modal form, each piece classified and each
+    boundary confirmed by eigenvalues (:func:`_classify`), the radius
+    followed in the product form (:func:`_modal_radius`). A line whose A1 is
+    not rank one, whose eigenvector matrix is near-defective, whose exact
+    intervals contradict the followed radius on the grid, or whose radius at
+    the last grid value differs from the eigenvalues there, takes the
+    polynomial path (:func:`_gain_lines_poly`, with its own slower exact
+    path). ``lines[i].path`` says which path a line took."""
+    lo, hi = float(y[0]), float(y[-1])
+    m = A0.shape[0]
+    lines: list = [None] * m
+    radius = np.empty((y.size, m))
+    md = _modal_form(A0, A1, lo, hi)
+    fast = np.nonzero(md.ok)[0]
+    if fast.size:
+        fl, _ = _classify(A0[fast], A1[fast], _modal_crossing_gains(md, fast), lo, hi, tol)
+        rad, _ = _modal_radius(md, fast, A0, A1, y, progress)
+        flags = np.stack([ln.flags(y) for ln in fl], axis=1)
+        bad = ((flags != (rad < 1.0 - tol)) & (np.abs(rad - 1.0) > 1e-7)).any(axis=0)
+        r_end = _radius(A0[fast] + y[-1] * A1[fast])
+        bad |= ~(np.abs(r_end - rad[-1]) <= 1e-9 * np.maximum(1.0, r_end))
+        for col, i in enumerate(fast):
+            if not bad[col]:
+                lines[i] = fl[col]
+                radius[:, i] = rad[:, col]
+    slow = np.array([i for i in range(m) if lines[i] is None], dtype=int)
+    if slow.size:
+        sl, srad = _gain_lines_poly(A0[slow], A1[slow], y, tol)
+        for col, i in enumerate(slow):
+            sl[col].path = "polynomial"
+            lines[i] = sl[col]
+            radius[:, i] = srad[:, col]
     return lines, radius
 
 
