@@ -99,7 +99,9 @@ def map_command(
         write_figure(fig, output, dpi=150)
     if csv_path is not None:
         try:
-            atomic_write_text(csv_path, csv_text(smap))
+            from loopcheck.map_table import csv_text as map_csv_text
+
+            atomic_write_text(csv_path, map_csv_text(smap))
         except OSError as exc:
             write_failure("--csv", csv_path, exc)
     if json_output:
@@ -110,10 +112,6 @@ def map_command(
 
 # --- rendering of the results (text only; numpy imported lazily) -------------
 
-#: CSV numbers are written with repr(): the shortest text that reads back as
-#: the same double, so every row can be recomputed exactly.
-
-
 def _metric_columns(smap) -> list[tuple[str, object]]:
     cols = []
     if smap.phase_margin_deg is not None:
@@ -123,35 +121,6 @@ def _metric_columns(smap) -> list[tuple[str, object]]:
     if smap.sensitivity_peak is not None:
         cols += [("sensitivity_peak", smap.sensitivity_peak), ("sensitivity_peak_hz", smap.sensitivity_peak_hz)]
     return cols
-
-
-def csv_text(smap) -> str:
-    """One row per grid point (x outer, y inner): every parameter that
-    varies across the map under its case-file name in SI base units, then
-    ``stable`` (0/1), ``spectral_radius`` and the requested metrics (empty
-    where undefined, ``inf`` for an unbounded upper gain margin)."""
-    names = list(smap.parameters)
-    cols = [smap.parameters[k].T.ravel() for k in names]
-    names += ["stable", "spectral_radius"]
-    cols += [smap.stable.T.ravel(), smap.spectral_radius.T.ravel()]
-    for k, arr in _metric_columns(smap):
-        names.append(k)
-        cols.append(arr.T.ravel())
-    import numpy as np
-
-    text_cols = []
-    for c in cols:
-        if c.dtype == bool:
-            text_cols.append(np.array(["0", "1"])[c.astype(int)].tolist())
-            continue
-        uniq, inv = np.unique(c, return_inverse=True)
-        if uniq.size < c.size // 4:  # parameters repeat along one axis: format each value once
-            words = np.array(["" if v != v else repr(v) for v in uniq.tolist()], dtype=object)
-            text_cols.append(words[inv.ravel()].tolist())
-        else:
-            text_cols.append(["" if v != v else repr(v) for v in c.tolist()])
-    rows = map(",".join, zip(*text_cols))
-    return ",".join(names) + "\n" + "\n".join(rows) + "\n"
 
 
 def _axis_record(ax) -> dict:

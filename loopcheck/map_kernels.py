@@ -185,14 +185,13 @@ if _JIT is not None:
         return out
 
     @_JIT
-    def _follow_numba(mur, mui, rr, ri, base, y, seeds, start, out):  # pragma: no cover - compiled
+    def _follow_numba(mur, mui, rr, ri, base, y, seeds, start, pair, out):  # pragma: no cover - compiled
         S, n = mur.shape
         ny = y.shape[0]
         fail = np.full(S, -1, dtype=np.int64)
         z = np.empty(n, dtype=np.complex128)
-        h1 = np.empty(n, dtype=np.complex128)
-        h2 = np.empty(n, dtype=np.complex128)
-        h3 = np.empty(n, dtype=np.complex128)
+        hist = np.empty((4, n), dtype=np.complex128)
+        wts = np.empty(4)
         for i in range(S):
             e1_0 = 0j
             e1_1 = 0j
@@ -210,28 +209,29 @@ if _JIT is not None:
             rad = 0.0
             for q in range(n):
                 z[q] = seeds[i, q]
-                h1[q] = z[q]
-                h2[q] = z[q]
-                h3[q] = z[q]
+                hist[0, q] = z[q]
                 rad = max(rad, abs(z[q]))
             out[j0, i] = rad
             age = 1
             for j in range(j0 + 1, ny):
                 yy = y[j]
                 t = yy - base[i]
-                if age >= 3:
-                    y1, y2, y3 = y[j - 1], y[j - 2], y[j - 3]
-                    l1 = (yy - y2) * (yy - y3) / ((y1 - y2) * (y1 - y3))
-                    l2 = (yy - y1) * (yy - y3) / ((y2 - y1) * (y2 - y3))
-                    l3 = (yy - y1) * (yy - y2) / ((y3 - y1) * (y3 - y2))
-                    for q in range(n):
-                        z[q] = l1 * h1[q] + l2 * h2[q] + l3 * h3[q]
-                elif age >= 2:
-                    s = (yy - y[j - 1]) / (y[j - 1] - y[j - 2])
-                    for q in range(n):
-                        z[q] = h1[q] + s * (h1[q] - h2[q])
-                ok = True
+                # Lagrange extrapolation through the last min(age, 4) values
+                p = min(age, 4)
+                for a in range(p):
+                    w = 1.0
+                    for b in range(p):
+                        if b != a:
+                            w *= (yy - y[j - 1 - b]) / (y[j - 1 - a] - y[j - 1 - b])
+                    wts[a] = w
                 for q in range(n):
+                    acc = 0j
+                    for a in range(p):
+                        acc += wts[a] * hist[a, q]
+                    z[q] = acc
+                ok = True
+                q = 0
+                while q < n:
                     zr = z[q].real
                     zi = z[q].imag
                     conv = False
@@ -250,8 +250,9 @@ if _JIT is not None:
                             if den == 0.0:
                                 on_pole = True
                                 break
-                            ir = dr / den
-                            ii = -di / den
+                            inv = 1.0 / den
+                            ir = dr * inv
+                            ii = -di * inv
                             s0r += ir
                             s0i += ii
                             qr = rr[i, k] * ir - ri[i, k] * ii
@@ -281,6 +282,15 @@ if _JIT is not None:
                         ok = False
                         break
                     z[q] = complex(zr, zi)
+                    if pair[i, q]:
+                        # the conjugate partner of a complex root (real matrix)
+                        if zi <= 0.0:
+                            ok = False  # the pair reached the real axis: re-seed
+                            break
+                        z[q + 1] = complex(zr, -zi)
+                        q += 2
+                    else:
+                        q += 1
                 if ok:
                     s1 = 0j
                     s2 = 0j
@@ -298,9 +308,10 @@ if _JIT is not None:
                     break
                 rad = 0.0
                 for q in range(n):
-                    h3[q] = h2[q]
-                    h2[q] = h1[q]
-                    h1[q] = z[q]
+                    hist[3, q] = hist[2, q]
+                    hist[2, q] = hist[1, q]
+                    hist[1, q] = hist[0, q]
+                    hist[0, q] = z[q]
                     rad = max(rad, abs(z[q]))
                 out[j, i] = rad
                 age += 1
@@ -324,6 +335,19 @@ def modal_response(mu: np.ndarray, r: np.ndarray, z: np.ndarray) -> np.ndarray:
     return _response_numpy(mu, r, z)
 
 
+def conjugate_pairs(z: np.ndarray) -> np.ndarray:
+    """``[S, n]`` flags of the roots ``z [S, n]`` of real lines that are the
+    first of an adjacent conjugate pair (positive imaginary part first, as
+    LAPACK returns eigenvalues of real matrices)."""
+    pair = np.zeros(z.shape, dtype=bool)
+    if z.shape[1] > 1:
+        pair[:, :-1] = (z[:, :-1].imag > 0) & (z[:, 1:] == np.conj(z[:, :-1]))
+        # a flagged root's partner must not itself start a pair
+        for q in range(1, z.shape[1]):
+            pair[:, q] &= ~pair[:, q - 1]
+    return pair
+
+
 def follow_roots(mu, r, base, y, seeds, start, out) -> np.ndarray:
     """Follow every root of each line from grid index ``start[i]`` (roots
     ``seeds[i]`` there) up the grid ``y [ny]`` (ascending), writing the
@@ -345,5 +369,7 @@ def follow_roots(mu, r, base, y, seeds, start, out) -> np.ndarray:
     if _JIT is not None:
         mu, r = args[0], args[1]
         parts = [np.ascontiguousarray(a) for a in (mu.real, mu.imag, r.real, r.imag)]
-        return _follow_numba(*parts, *args[2:], out)
+        # conjugate pairs are followed once (the closed loop is real)
+        pair = conjugate_pairs(args[4])
+        return _follow_numba(*parts, *args[2:], pair, out)
     return _follow_numpy(*args, out)

@@ -96,7 +96,6 @@ from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space
-from .margins import POLE_AT_POINT_TOL
 from .verdict import TOLERANCE
 
 #: Parameters a map axis can sweep (case-file names; "fr/fs" is a ratio).
@@ -1410,6 +1409,8 @@ def _wrap_deg(x):
 def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
     """Margins of the points ``pi``: phase margin [deg], gain-margin factors
     (lower, upper), sensitivity peak and its angle [rad/sample]."""
+    from .margins import POLE_AT_POINT_TOL  # (scipy.optimize only when margins are asked for)
+
     S = pi.size
     Lb = data.loop_grid(pi, w_base)
     ang = data.special_angles(pi)
