@@ -150,6 +150,8 @@ def json_record(smap, case_path: str, figure, csv_path) -> dict:
             for x, ivs, b, m in zip(smap.x_values, smap.intervals, smap.boundaries, smap.boundary_method)
         ],
         "metrics": [k for k, _ in _metric_columns(smap)],
+        "polynomial_path_columns": smap.boundary_path.count("polynomial"),
+        "kernels": smap.kernels,
         "figure": str(figure) if figure is not None else None,
         "csv": str(csv_path) if csv_path is not None else None,
     }
@@ -204,6 +206,9 @@ def summary_text(smap, case_path: str, figure, csv_path) -> str:
         )
         if smap.x.is_gain and not smap.y.is_gain:
             lines.append(f"  hint: the gain {xn} on the y axis (--x {yn} --y {xn}) gives exact boundaries in every column")
+    n_poly = smap.boundary_path.count("polynomial")
+    if n_poly:
+        lines.append(f"  {n_poly} of {len(methods)} columns took the slower polynomial path (near-defective modal basis)")
     if figure is not None:
         lines.append(f"  figure: {figure}")
     if csv_path is not None:

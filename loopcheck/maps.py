@@ -194,6 +194,11 @@ class StabilityMap:
     [controller-gain factor, -; upper inf when unbounded],
     sensitivity_peak [-] and sensitivity_peak_hz [Hz]: the requested
     metrics (None when not requested; NaN where undefined, e.g. not stable).
+    boundary_path: per x value, how the column was computed along a gain
+    axis: ``"modal"`` (the fast modal path) or ``"polynomial"`` (the
+    fallback for near-defective modal bases, see :func:`gain_lines`), or
+    ``"grid"`` without a gain on the y axis. kernels: ``"numba"`` or
+    ``"numpy"``, the inner loops used (:mod:`loopcheck.map_kernels`).
     design_x, design_y: the case's own values on the axes [axis units];
     design_stable: its verdict; design_interval: the stable y interval at
     x = design_x that contains design_y, or None.
@@ -231,6 +236,8 @@ class StabilityMap:
     gain_margin_upper: np.ndarray | None = None
     sensitivity_peak: np.ndarray | None = None
     sensitivity_peak_hz: np.ndarray | None = None
+    boundary_path: tuple = ()
+    kernels: str = ""
 
     @property
     def stable_fraction(self) -> float:
@@ -518,12 +525,13 @@ def crossing_gains(p0: np.ndarray, p1: np.ndarray) -> list[np.ndarray]:
 class _LineIntervals:
     """Verdict pieces of one line: boundaries (ascending) and whether the
     piece below the first boundary is stable; method "exact" or "refined";
-    path: "modal" or "polynomial" (see :func:`gain_lines`)."""
+    path: "modal" or "polynomial" along a gain (see :func:`gain_lines`),
+    "grid" for verdicts on the grid refined by bisection."""
 
     boundaries: np.ndarray
     first_stable: bool
     method: str
-    path: str = "modal"
+    path: str = "grid"
 
     def intervals(self, lo: float, hi: float) -> tuple:
         edges = [lo] + list(self.boundaries) + [hi]
@@ -897,10 +905,10 @@ def _balance(A: np.ndarray, sweeps: int = 20):
         for i in range(n):
             c = absA[:, :, i].sum(axis=1)
             r = absA[:, i, :].sum(axis=1)
-            with np.errstate(divide="ignore", invalid="ignore"):
+            with np.errstate(all="ignore"):
                 f = np.exp2(np.round(0.5 * np.log2(r / c)))
-            good = (c > 0) & (r > 0) & np.isfinite(f) & (f != 1.0)
-            good &= c * f + r / f < 0.95 * (c + r)
+                good = (c > 0) & (r > 0) & np.isfinite(f) & (f != 1.0)
+                good &= c * f + r / f < 0.95 * (c + r)
             if not good.any():
                 continue
             changed = True
@@ -1065,6 +1073,7 @@ def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = 
         bad |= ~(np.abs(r_end - rad[-1]) <= 1e-9 * np.maximum(1.0, r_end))
         for col, i in enumerate(fast):
             if not bad[col]:
+                fl[col].path = "modal"
                 lines[i] = fl[col]
                 radius[:, i] = rad[:, col]
     slow = np.array([i for i in range(m) if lines[i] is None], dtype=int)
@@ -1175,6 +1184,12 @@ def _design_interval(design: Design, spec: MapSpec, x0: float, y0: float, tol: f
     return stable, None
 
 
+def _kernels() -> str:
+    from .map_kernels import BACKEND, _JIT
+
+    return BACKEND if _JIT is not None else "numpy"
+
+
 def _varying_parameters(design: Design, spec: MapSpec, xv, yv) -> dict:
     X, Y = np.broadcast_arrays(xv[None, :], yv[:, None])
     prm = point_parameters(design, {spec.x.name: xv[None, :], spec.y.name: yv[:, None]})
@@ -1225,6 +1240,8 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
         intervals=tuple(ln.intervals(lo, hi) for ln in lines),
         boundaries=tuple(tuple(float(b) for b in ln.boundaries) for ln in lines),
         boundary_method=tuple(ln.method for ln in lines),
+        boundary_path=tuple(ln.path for ln in lines),
+        kernels=_kernels(),
         parameters=_varying_parameters(design, spec, xv, yv),
         design_x=float(x0),
         design_y=float(y0),
