@@ -45,10 +45,13 @@ def _numba_jit():
         import numba
     except Exception:  # not installed, or broken: the numpy path
         return None
-    return numba.njit(cache=True, nogil=True, error_model="numpy")
+    return numba
 
 
-_JIT = _numba_jit()
+_NUMBA = _numba_jit()
+_JIT = None if _NUMBA is None else _NUMBA.njit(cache=True, nogil=True, error_model="numpy")
+_PJIT = None if _NUMBA is None else _NUMBA.njit(cache=True, nogil=True, error_model="numpy", parallel=True)
+_prange = range if _NUMBA is None else _NUMBA.prange
 #: "numba" when the compiled kernels are in use, else "numpy".
 BACKEND = "numba" if _JIT is not None else "numpy"
 
@@ -184,15 +187,42 @@ if _JIT is not None:
                 out[i, f] = complex(ar, ai)
         return out
 
-    @_JIT
+    @_PJIT
+    def _imag_ratio_numba(mur, mui, rr, ri, w):  # pragma: no cover - compiled
+        S, F = w.shape
+        n = mur.shape[1]
+        out = np.empty((S, F))
+        for i in _prange(S):
+            for f in range(F):
+                zr = np.cos(w[i, f])
+                zi = np.sin(w[i, f])
+                ar = 0.0
+                ai = 0.0
+                for k in range(n):
+                    dr = zr - mur[i, k]
+                    di = zi - mui[i, k]
+                    den = dr * dr + di * di
+                    if den == 0.0:
+                        ar = np.nan
+                        ai = np.nan
+                        break
+                    inv = 1.0 / den
+                    ir = dr * inv
+                    ii = -di * inv
+                    ar += rr[i, k] * ir - ri[i, k] * ii
+                    ai += rr[i, k] * ii + ri[i, k] * ir
+                out[i, f] = ai / np.sqrt(ar * ar + ai * ai)
+        return out
+
+    @_PJIT
     def _follow_numba(mur, mui, rr, ri, base, y, seeds, start, pair, out):  # pragma: no cover - compiled
         S, n = mur.shape
         ny = y.shape[0]
         fail = np.full(S, -1, dtype=np.int64)
-        z = np.empty(n, dtype=np.complex128)
-        hist = np.empty((4, n), dtype=np.complex128)
-        wts = np.empty(4)
-        for i in range(S):
+        for i in _prange(S):
+            z = np.empty(n, dtype=np.complex128)
+            hist = np.empty((4, n), dtype=np.complex128)
+            wts = np.empty(4)
             e1_0 = 0j
             e1_1 = 0j
             e2_0 = 0j
@@ -333,6 +363,20 @@ def modal_response(mu: np.ndarray, r: np.ndarray, z: np.ndarray) -> np.ndarray:
         zr, zi = np.broadcast_arrays(z.real, z.imag)
         return _response_numba(*parts, np.ascontiguousarray(zr), np.ascontiguousarray(zi))
     return _response_numpy(mu, r, z)
+
+
+def imag_ratio(mu: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """``Im G / |G|`` of :func:`modal_response` on the unit circle,
+    ``z = e^{jw}`` for angles ``w [S, F]`` [rad/sample]; NaN at a pole or a
+    zero of G."""
+    if _JIT is not None:
+        mu, r = np.asarray(mu, dtype=complex), np.asarray(r, dtype=complex)
+        parts = [np.ascontiguousarray(a) for a in (mu.real, mu.imag, r.real, r.imag)]
+        with np.errstate(all="ignore"):
+            return _imag_ratio_numba(*parts, np.ascontiguousarray(w, dtype=float))
+    g = _response_numpy(mu, r, np.exp(1j * w))
+    with np.errstate(all="ignore"):
+        return g.imag / np.abs(g)
 
 
 def conjugate_pairs(z: np.ndarray) -> np.ndarray:

@@ -32,6 +32,10 @@ from loopcheck.units import UnitError, parse_quantity_unit, shown
 MAP_KEYS = ("x", "x_range", "x_points", "x_scale", "y", "y_range", "y_points", "y_scale", "metrics")
 #: Bounds of the number of grid values per axis.
 POINTS_MIN, POINTS_MAX = 2, 5000
+#: Largest number of grid points of one map (peak memory about 1.6 GB at
+#: 3000 x 3000 with the figure, measured by benchmarks/bench_map_wide.py;
+#: 5000 x 5000 would need about 4 GB).
+GRID_POINTS_MAX = 9_000_000
 DEFAULT_POINTS = {"x": 300, "y": 200}
 #: Largest fr/fs accepted on an axis (the resonance must stay below fs/2).
 RATIO_MAX = 0.499
@@ -248,6 +252,14 @@ def map_spec(case, overrides: Overrides | None = None):
     except ValueError as exc:
         label = "--y" if ov.y is not None else f"{where} y"
         raise _err(label, str(exc)) from None
+    total = axes["x"].points * axes["y"].points
+    if total > GRID_POINTS_MAX:
+        ax = "x" if axes["x"].points >= axes["y"].points else "y"
+        raise _err(
+            source(f"{ax}_points")[1],
+            f"{axes['x'].points} x {axes['y'].points} = {total} grid points is more than a map holds in memory "
+            f"(at most {GRID_POINTS_MAX}, e.g. 3000 x 3000); use fewer x_points or y_points",
+        )
     raw_m, label_m = source("metrics")
     metrics = () if raw_m is None else _read_metrics(raw_m, label_m, METRICS)
     spec = MapSpec(axes["x"], axes["y"], metrics)

@@ -979,9 +979,9 @@ def _modal_crossing_gains(md: _Modal, lines: np.ndarray) -> list[np.ndarray]:
     wc = (ang[:, :, None] * offs[None, None, :]).reshape(m, -1)
     wc = np.where(np.isfinite(wc) & (wc > 0) & (wc < math.pi), wc, math.pi)
     w = np.sort(np.concatenate([np.broadcast_to(grid, (m, grid.size)), wc], axis=1), axis=1)
-    g = _modal_G(mu, r, np.exp(1j * w))
-    with np.errstate(all="ignore"):
-        h = g.imag / np.abs(g)
+    from .map_kernels import imag_ratio
+
+    h = imag_ratio(mu, r, w)
     fin = np.isfinite(h)
     ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
 

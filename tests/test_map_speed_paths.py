@@ -170,3 +170,46 @@ def test_followed_roots_match_eigenvalues_on_a_lightly_damped_pair(backend):
     ivs = lines[0].intervals(y[0], y[-1])
     assert len(ivs) == 1
     assert ivs[0] == pytest.approx((-1.0 / 3.0, 1.0 / 3.0), abs=1e-10)
+
+
+def test_a_map_too_large_for_memory_is_refused_in_one_line(tmp_path):
+    # 5000 x 5000 would need about 4 GB: one line naming the option, exit 2,
+    # nothing written (the command's bad-input convention, common practice)
+    from pathlib import Path
+
+    from typer.testing import CliRunner
+
+    from loopcheck.cli import app
+
+    case = Path(__file__).resolve().parents[1] / "benchmarks" / "wide-range-pr.toml"
+    png = tmp_path / "m.png"
+    r = CliRunner().invoke(
+        app, ["map", str(case), "--x-points", "5000", "--y-points", "5000", "-o", str(png)],
+        env={"COLUMNS": "200", "NO_COLOR": "1"},
+    )
+    assert r.exit_code == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: --x-points: 5000 x 5000") and "memory" in lines[0]
+    assert not png.exists() and "Traceback" not in r.stderr
+
+
+def test_csv_text_round_trips_every_value():
+    # the CSV numbers read back as the same doubles (repr is the shortest
+    # round-trip text; Python language reference, common practice)
+    import csv
+    import io
+
+    from loopcheck.map_table import csv_text
+
+    spec = maps.MapSpec(maps.Axis("fr/fs", 0.002, 0.49, 7), maps.Axis("Hi", 0.0, 20.0, 5), ("phase-margin",))
+    m = maps.compute_map(WIDE, spec)
+    rows = list(csv.DictReader(io.StringIO(csv_text(m))))
+    assert len(rows) == 35
+    for k, row in enumerate(rows):
+        ix, iy = divmod(k, 5)  # x outer, y inner
+        assert float(row["fr/fs"]) == m.x_values[ix] and float(row["Hi"]) == m.y_values[iy]
+        assert float(row["C"]) == m.parameters["C"][iy, ix]
+        assert float(row["spectral_radius"]) == m.spectral_radius[iy, ix]
+        assert row["stable"] == ("1" if m.stable[iy, ix] else "0")
+        pm = m.phase_margin_deg[iy, ix]
+        assert (row["phase_margin_deg"] == "") if np.isnan(pm) else (float(row["phase_margin_deg"]) == pm)
