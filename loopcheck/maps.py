@@ -38,7 +38,19 @@ state-space matrix (never by the polynomial), and every boundary that
 changes the verdict is verified by eigenvalues just beside it, or located by
 eigenvalue bisection where that check fails.
 
-The slower exact path: where the polynomial is ill-conditioned (roots
+The modal path (used first along a gain, :func:`gain_lines`): the
+monomial coefficients are never formed. With ``A(y) = A(b) + (y - b) u
+v^T`` and the balanced eigendecomposition ``A(b) = V diag(mu) V^-1``,
+residues ``r = (v^T V) o (V^-1 u)`` give ``det(zI - A(y)) = prod_k (z -
+mu_k) (1 - (y - b) sum_k r_k/(z - mu_k))``; the candidate gains are
+``b + 1/G(e^{jw})`` where ``G = sum_k r_k/(z - mu_k)`` is real, plus z =
++-1, classified by eigenvalues as above, and the radius follows every root
+in this product form (:mod:`loopcheck.map_kernels`). Lines with a
+near-defective eigenvector matrix, or whose followed radius contradicts the
+intervals or the eigenvalues at the last grid value, take the polynomial
+path below.
+
+The slower exact path of the polynomial route: where the polynomial is ill-conditioned (roots
 clustered near z = 1 at very low fr/fs, many resonators, high fs; detected
 by comparing its roots with state-space eigenvalues), the candidate gains
 come from the frequency response instead: with ``A1 = u v^T``,
@@ -77,6 +89,9 @@ References
    Damping Control for LCL Filters", IEEE Trans. Ind. Appl., vol. 50,
    no. 1, pp. 424-432, 2014 (the critical ratio fr/fs = 1/6 drawn on maps;
    from memory).
+.. [6] B. N. Parlett and C. Reinsch, "Balancing a matrix for calculation
+   of eigenvalues and eigenvectors", Numer. Math., vol. 13, pp. 293-304,
+   1969 (diagonal balancing before the modal decomposition; from memory).
 
 Newton's method on polynomial roots and Newton's identities between roots
 and coefficients, used by :func:`track_radius`, are common practice.
@@ -1308,19 +1323,21 @@ class _LoopData:
         self.Ts = 1.0 / prm["fs"]
         blocks = controller_blocks(design.control, design.grid.f_hz, self.Ts_u, Kp=0.0, Ki=1.0, Kr=1.0)
         self.blocks = [b for b in blocks[1:]]
+        # each block of order <= 2 as (n1 z + n0) / (z^2 + a1 z + a0) + d
+        # (first order: n1 / (z + a1) + d) per sampling period, from its own
+        # realisation; nothing is multiplied across blocks. Arrays [T, blocks]
+        self._unit_coef = self._block_coefficients()
         # controller poles (resonators, integrator) for the frequency clusters
         self.ctrl_angles = [np.abs(np.angle(np.linalg.eigvals(b.A))) for b in self.blocks if b.order > 0]
 
     def plant(self, pi, z, which: str):
         """Plant response at points ``pi [S]`` and ``z [S, F]``."""
+        from .map_kernels import modal_response
+
         u = self.pidx[pi]
         res = self.r_fb if which == "fb" else self.r_ic
-        lam = self.lam[u]
-        r = res[u]
-        out = np.zeros(z.shape, dtype=complex)
+        out = modal_response(self.lam[u], res[u], np.broadcast_to(z, (u.size,) + z.shape[1:]))
         with np.errstate(all="ignore"):
-            for k in range(lam.shape[1]):
-                out += r[:, k : k + 1] / (z - lam[:, k : k + 1])
             bad = self.direct[u]
             if bad.any():
                 c = self.plants.c_fb if which == "fb" else self.plants.c_ic
@@ -1331,25 +1348,47 @@ class _LoopData:
                 out[bad] = (c[ub][:, None] @ x)[..., 0, 0]
         return out
 
+    def _block_coefficients(self):
+        T = self.Ts_u.size
+        nb = len(self.blocks)
+        co = {k: np.zeros((T, nb)) for k in ("n1", "n0", "a1", "a0", "d")}
+        for j, b in enumerate(self.blocks):
+            A, B, C, D = (np.broadcast_to(m, (T,) + m.shape[-2:]) for m in (b.A, b.B, b.C, b.D))
+            co["d"][:, j] = D[:, 0, 0]
+            if b.order == 1:
+                # c b / (z - a): n1 holds c b, a1 holds -a (evaluated as such)
+                co["n1"][:, j] = C[:, 0, 0] * B[:, 0, 0]
+                co["a1"][:, j] = -A[:, 0, 0]
+            elif b.order == 2:
+                a11, a12, a21, a22 = A[:, 0, 0], A[:, 0, 1], A[:, 1, 0], A[:, 1, 1]
+                b1, b2 = B[:, 0, 0], B[:, 1, 0]
+                c1, c2 = C[:, 0, 0], C[:, 0, 1]
+                co["n1"][:, j] = c1 * b1 + c2 * b2
+                co["n0"][:, j] = -c1 * a22 * b1 + c1 * a12 * b2 + c2 * a21 * b1 - c2 * a11 * b2
+                co["a1"][:, j] = -(a11 + a22)
+                co["a0"][:, j] = a11 * a22 - a12 * a21
+            else:
+                co["a1"][:, j] = np.nan  # static block: no dynamic part
+        return co
+
     def unit_controller(self, pi, z):
         """U(z) at points ``pi [S]``, ``z [S, F]`` (zero for a P controller)."""
         t = self.tidx[pi]
         out = np.zeros(z.shape, dtype=complex)
+        if not self.blocks:
+            return out
+        co = self._unit_coef
         with np.errstate(all="ignore"):
-            for b in self.blocks:
-                A, B, C, D = b.A[t], b.B[t], b.C[t], b.D[t]
+            for j, b in enumerate(self.blocks):
+                d = co["d"][t, j][:, None]
                 if b.order == 1:
-                    out += (C[:, 0, 0] * B[:, 0, 0])[:, None] / (z - A[:, 0, 0][:, None]) + D[:, 0, 0][:, None]
+                    out += co["n1"][t, j][:, None] / (z + co["a1"][t, j][:, None]) + d
                 elif b.order == 2:
-                    a11, a12, a21, a22 = (A[:, i, j][:, None] for i, j in ((0, 0), (0, 1), (1, 0), (1, 1)))
-                    b1, b2 = B[:, 0, 0][:, None], B[:, 1, 0][:, None]
-                    c1, c2 = C[:, 0, 0][:, None], C[:, 0, 1][:, None]
-                    det = (z - a11) * (z - a22) - a12 * a21
-                    x1 = (z - a22) * b1 + a12 * b2
-                    x2 = a21 * b1 + (z - a11) * b2
-                    out += (c1 * x1 + c2 * x2) / det + D[:, 0, 0][:, None]
+                    num = co["n1"][t, j][:, None] * z + co["n0"][t, j][:, None]
+                    den = (z + co["a1"][t, j][:, None]) * z + co["a0"][t, j][:, None]
+                    out += num / den + d
                 else:
-                    out += D[:, 0, 0][:, None]
+                    out += d
         return out
 
     def loop(self, pi, z):
