@@ -187,6 +187,27 @@ if _JIT is not None:
                 out[i, f] = complex(ar, ai)
         return out
 
+    @_JIT
+    def _blocks_numba(co, zr, zi):  # pragma: no cover - compiled
+        S, F = zr.shape
+        nb = co.shape[2]
+        out = np.empty((S, F), dtype=np.complex128)
+        for i in range(S):
+            dsum = 0.0
+            for j in range(nb):
+                dsum += co[i, 4, j]
+            for f in range(F):
+                z = complex(zr[i, f], zi[i, f])
+                acc = complex(dsum, 0.0)
+                for j in range(nb):
+                    den = (z + co[i, 2, j]) * z + co[i, 3, j]
+                    if den.real == 0.0 and den.imag == 0.0:
+                        acc = complex(np.inf, np.nan)
+                        break
+                    acc += (co[i, 0, j] * z + co[i, 1, j]) / den
+                out[i, f] = acc
+        return out
+
     @_PJIT
     def _imag_ratio_numba(mur, mui, rr, ri, w):  # pragma: no cover - compiled
         S, F = w.shape
@@ -363,6 +384,22 @@ def modal_response(mu: np.ndarray, r: np.ndarray, z: np.ndarray) -> np.ndarray:
         zr, zi = np.broadcast_arrays(z.real, z.imag)
         return _response_numba(*parts, np.ascontiguousarray(zr), np.ascontiguousarray(zi))
     return _response_numpy(mu, r, z)
+
+
+def block_sum(co: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """``sum_j (n1_j z + n0_j) / (z^2 + a1_j z + a0_j) + d_j`` for points
+    ``z [S, F]`` with per-point block coefficients ``co [S, 5, blocks]``
+    (rows n1, n0, a1, a0, d): the response of controller blocks of order
+    <= 2, each from its own realisation."""
+    if _JIT is not None:
+        z = np.asarray(z, dtype=complex)
+        zr, zi = np.broadcast_arrays(z.real, z.imag)
+        return _blocks_numba(np.ascontiguousarray(co, dtype=float), np.ascontiguousarray(zr), np.ascontiguousarray(zi))
+    c = co[:, None, :, :]
+    zz = z[:, :, None]
+    with np.errstate(all="ignore"):
+        terms = (c[..., 0, :] * zz + c[..., 1, :]) / ((zz + c[..., 2, :]) * zz + c[..., 3, :])
+    return terms.sum(axis=-1) + c[..., 4, :].sum(axis=-1)
 
 
 def imag_ratio(mu: np.ndarray, r: np.ndarray, w: np.ndarray) -> np.ndarray:

@@ -1349,52 +1349,44 @@ class _LoopData:
         return out
 
     def _block_coefficients(self):
+        """Per sampling period and block, ``(n1, n0, a1, a0, d)`` with the
+        block's response ``(n1 z + n0) / (z^2 + a1 z + a0) + d`` (a
+        first-order block c b / (z - a) as ``(c b z) / (z^2 - a z)``, a
+        static one as ``d``), from its own realisation; nothing is
+        multiplied across blocks. Array ``[T, 5, blocks]``."""
         T = self.Ts_u.size
         nb = len(self.blocks)
-        co = {k: np.zeros((T, nb)) for k in ("n1", "n0", "a1", "a0", "d")}
+        co = np.zeros((T, 5, nb))
         for j, b in enumerate(self.blocks):
             A, B, C, D = (np.broadcast_to(m, (T,) + m.shape[-2:]) for m in (b.A, b.B, b.C, b.D))
-            co["d"][:, j] = D[:, 0, 0]
+            co[:, 4, j] = D[:, 0, 0]
             if b.order == 1:
-                # c b / (z - a): n1 holds c b, a1 holds -a (evaluated as such)
-                co["n1"][:, j] = C[:, 0, 0] * B[:, 0, 0]
-                co["a1"][:, j] = -A[:, 0, 0]
+                co[:, 0, j] = C[:, 0, 0] * B[:, 0, 0]
+                co[:, 2, j] = -A[:, 0, 0]
             elif b.order == 2:
                 a11, a12, a21, a22 = A[:, 0, 0], A[:, 0, 1], A[:, 1, 0], A[:, 1, 1]
                 b1, b2 = B[:, 0, 0], B[:, 1, 0]
                 c1, c2 = C[:, 0, 0], C[:, 0, 1]
-                co["n1"][:, j] = c1 * b1 + c2 * b2
-                co["n0"][:, j] = -c1 * a22 * b1 + c1 * a12 * b2 + c2 * a21 * b1 - c2 * a11 * b2
-                co["a1"][:, j] = -(a11 + a22)
-                co["a0"][:, j] = a11 * a22 - a12 * a21
-            else:
-                co["a1"][:, j] = np.nan  # static block: no dynamic part
+                co[:, 0, j] = c1 * b1 + c2 * b2
+                co[:, 1, j] = -c1 * a22 * b1 + c1 * a12 * b2 + c2 * a21 * b1 - c2 * a11 * b2
+                co[:, 2, j] = -(a11 + a22)
+                co[:, 3, j] = a11 * a22 - a12 * a21
+            elif b.order > 2:
+                raise ValueError("controller blocks above second order are not supported here")
         return co
 
     def unit_controller(self, pi, z):
         """U(z) at points ``pi [S]``, ``z [S, F]`` (zero for a P controller)."""
-        t = self.tidx[pi]
-        out = np.zeros(z.shape, dtype=complex)
         if not self.blocks:
-            return out
-        co = self._unit_coef
-        with np.errstate(all="ignore"):
-            for j, b in enumerate(self.blocks):
-                d = co["d"][t, j][:, None]
-                if b.order == 1:
-                    out += co["n1"][t, j][:, None] / (z + co["a1"][t, j][:, None]) + d
-                elif b.order == 2:
-                    num = co["n1"][t, j][:, None] * z + co["n0"][t, j][:, None]
-                    den = (z + co["a1"][t, j][:, None]) * z + co["a0"][t, j][:, None]
-                    out += num / den + d
-                else:
-                    out += d
-        return out
+            return np.zeros(z.shape, dtype=complex)
+        from .map_kernels import block_sum
+
+        return block_sum(self._unit_coef[self.tidx[pi]], z)
 
     def loop(self, pi, z):
         """L(z) at points ``pi [S]`` and ``z [S, F]``."""
-        gc = self.Kp[pi][:, None] + self.g[pi][:, None] * self.unit_controller(pi, z)
         with np.errstate(all="ignore"):
+            gc = self.Kp[pi][:, None] + self.g[pi][:, None] * self.unit_controller(pi, z)
             return gc * self.plant(pi, z, "fb") / (1.0 + self.Hi[pi][:, None] * self.plant(pi, z, "ic"))
 
     def loop_grid(self, pi, w: np.ndarray) -> np.ndarray:
@@ -1410,8 +1402,8 @@ class _LoopData:
         gfb = self.plant(rep_p, zp, "fb")[inv_p.ravel()]
         gic = self.plant(rep_p, zp, "ic")[inv_p.ravel()]
         unit = self.unit_controller(rep_t, np.broadcast_to(z, (ut.size, w.size)))[inv_t.ravel()]
-        gc = self.Kp[pi][:, None] + self.g[pi][:, None] * unit
         with np.errstate(all="ignore"):
+            gc = self.Kp[pi][:, None] + self.g[pi][:, None] * unit
             return gc * gfb / (1.0 + self.Hi[pi][:, None] * gic)
 
     def special_angles(self, pi) -> np.ndarray:

@@ -213,3 +213,22 @@ def test_csv_text_round_trips_every_value():
         assert row["stable"] == ("1" if m.stable[iy, ix] else "0")
         pm = m.phase_margin_deg[iy, ix]
         assert (row["phase_margin_deg"] == "") if np.isnan(pm) else (float(row["phase_margin_deg"]) == pm)
+
+
+def test_controller_blocks_response_matches_their_state_space(backend):
+    # reference: C (zI - A)^-1 B + D of every controller block, solved with
+    # numpy.linalg (common practice), summed; PR with harmonics and PI
+    for control in (WIDE.control, Control("grid", "PI", Kp_V_per_A=5.0, Ki_V_per_As=800.0, Hi_V_per_A=6.5)):
+        d = Design(WIDE.filter, WIDE.grid, WIDE.sampling, control, name="invented")
+        prm = maps.point_parameters(d, {"fr/fs": np.array([0.05, 0.2]), "Hi": np.array([3.0, 6.0])})
+        data = maps._LoopData(d, prm)
+        w = np.array([1e-4, 0.02, 0.4, 3.0])
+        z = np.exp(1j * w)[None, :].repeat(2, axis=0)
+        got = data.unit_controller(np.arange(2), z)
+        ref = np.zeros(w.size, dtype=complex)
+        for b in data.blocks:
+            A, B, C, D = (np.asarray(m)[0] if np.ndim(m) == 3 else np.asarray(m) for m in (b.A, b.B, b.C, b.D))
+            for k, zz in enumerate(z[0]):
+                n = A.shape[-1]
+                ref[k] += (C @ np.linalg.solve(zz * np.eye(n) - A, B))[0, 0] + D[0, 0] if n else D[0, 0]
+        np.testing.assert_allclose(got[0], ref, rtol=1e-10)
