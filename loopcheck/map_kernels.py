@@ -11,8 +11,8 @@ Two kernels, used by :mod:`loopcheck.maps`:
   the traces ``sum z_i = trace A`` and ``sum z_i^2 = trace A^2``; where a
   check fails the caller re-seeds the roots from eigenvalues.
 
-With numba installed (``pip install numba``) the loops are compiled on first
-use and cached on disk; without it, or with the environment variable
+With numba installed (a dependency where numba has wheels) the loops are
+compiled on first use and cached on disk; without it, or with the environment variable
 ``LOOPCHECK_NUMBA=0``, the same computation runs vectorised in numpy (slower
 for large maps, same results to rounding). :data:`BACKEND` names the one in
 use.
