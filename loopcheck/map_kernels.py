@@ -88,6 +88,18 @@ def _newton_numpy(z, mu, r, t):
     return z - dz, dz
 
 
+def _lagrange_weights(y, j: int, p: int) -> list[float]:
+    """Weights of the last p values (newest first) extrapolating to y[j]."""
+    out = []
+    for a in range(p):
+        w = 1.0
+        for b in range(p):
+            if b != a:
+                w *= (y[j] - y[j - 1 - b]) / (y[j - 1 - a] - y[j - 1 - b])
+        out.append(w)
+    return out
+
+
 def _follow_numpy(mu, r, base, y, seeds, start, out):
     S, n = mu.shape
     ny = y.size
@@ -96,14 +108,12 @@ def _follow_numpy(mu, r, base, y, seeds, start, out):
     e2_0, e2_1, e2_2 = (mu * mu).sum(axis=1), 2.0 * (mu * r).sum(axis=1), e1_1 * e1_1
     j0 = int(start.min()) if S else 0
     alive = np.zeros(S, dtype=bool)
-    z = seeds.astype(complex).copy()
-    hist = [z.copy(), z.copy(), z.copy()]
+    hist = [seeds.astype(complex).copy() for _ in range(4)]  # newest first
     age = np.zeros(S, dtype=int)
     with np.errstate(all="ignore"):
         for j in range(j0, ny):
             begin = start == j
             if begin.any():
-                z[begin] = seeds[begin]
                 for h in hist:
                     h[begin] = seeds[begin]
                 age[begin] = 1
@@ -112,29 +122,35 @@ def _follow_numpy(mu, r, base, y, seeds, start, out):
             act = np.nonzero(alive & (start < j))[0]
             if act.size == 0:
                 continue
+            full = act.size == S
             yy = y[j]
             t = (yy - base[act])[:, None]
-            h1, h2, h3 = hist[-1][act], hist[-2][act], hist[-3][act]
-            a = age[act][:, None]
-            zp = h1.copy()
-            if j - 2 >= 0:
-                s = (yy - y[j - 1]) / (y[j - 1] - y[j - 2])
-                zp = np.where(a >= 2, h1 + s * (h1 - h2), zp)
-            if j - 3 >= 0:
-                y1, y2, y3 = y[j - 1], y[j - 2], y[j - 3]
-                l1 = (yy - y2) * (yy - y3) / ((y1 - y2) * (y1 - y3))
-                l2 = (yy - y1) * (yy - y3) / ((y2 - y1) * (y2 - y3))
-                l3 = (yy - y1) * (yy - y2) / ((y3 - y1) * (y3 - y2))
-                zp = np.where(a >= 3, l1 * h1 + l2 * h2 + l3 * h3, zp)
+            a = age if full else age[act]
+            H = hist if full else [h[act] for h in hist]
+            zp = H[0].copy()
+            for p in (2, 3, 4):
+                if j - p < 0:
+                    break
+                sel = a >= p
+                if not sel.any():
+                    break
+                wts = _lagrange_weights(y, j, p)
+                pred = wts[0] * H[0]
+                for q in range(1, p):
+                    pred += wts[q] * H[q]
+                zp = np.where(sel[:, None], pred, zp)
             zz = zp
-            todo = np.arange(act.size)
-            for _ in range(NEWTON_MAX):
-                znew, dz = _newton_numpy(zz[todo], mu[act[todo]], r[act[todo]], t[todo])
-                zz[todo] = znew
-                done = (np.abs(dz) <= NEWTON_TOL * (1.0 + np.abs(znew))).all(axis=1)
-                todo = todo[~done]
+            m_act, r_act = (mu, r) if full else (mu[act], r[act])
+            zz, dz = _newton_numpy(zz, m_act, r_act, t)
+            done = (np.abs(dz) <= NEWTON_TOL * (1.0 + np.abs(zz))).all(axis=1)
+            todo = np.nonzero(~done)[0]
+            for _ in range(NEWTON_MAX - 1):
                 if todo.size == 0:
                     break
+                znew, dk = _newton_numpy(zz[todo], m_act[todo], r_act[todo], t[todo])
+                zz[todo] = znew
+                ok_k = (np.abs(dk) <= NEWTON_TOL * (1.0 + np.abs(znew))).all(axis=1)
+                todo = todo[~ok_k]
             ok = np.ones(act.size, dtype=bool)
             ok[todo] = False
             tt = t[:, 0]
@@ -147,13 +163,10 @@ def _follow_numpy(mu, r, base, y, seeds, start, out):
             fail[bad] = j
             alive[bad] = False
             good = act[ok]
-            zg = zz[ok]
-            hist = [hist[1], hist[2], hist[0]]
-            hist[-1][good] = zg
-            # lines not followed this step keep their history (they are not alive)
-            z[good] = zg
+            hist = [hist[3], hist[0], hist[1], hist[2]]  # the oldest slot becomes the newest
+            hist[0][good] = zz[ok]
             age[good] += 1
-            out[j, good] = np.abs(zg).max(axis=1)
+            out[j, good] = np.abs(zz[ok]).max(axis=1)
     return fail
 
 

@@ -781,14 +781,14 @@ def frequency_crossing_gains(A0: np.ndarray, A1: np.ndarray) -> list[np.ndarray]
     with np.errstate(all="ignore"):
         h = g.imag / np.abs(g)
     fin = np.isfinite(h)
-    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+    ii, jj, kk = _sign_brackets(h, fin)
 
     def fh(li, x):
         val = G(li, np.asarray(x)[:, None])[:, 0]
         with np.errstate(all="ignore"):
             return val.imag / np.abs(val)
 
-    wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+    wr = _illinois(fh, ii, w[ii, jj], w[ii, kk], h[ii, jj], h[ii, kk])
     val = G(ii, wr[:, None])[:, 0]
     cands: list[list[float]] = [[] for _ in range(m)]
     with np.errstate(all="ignore"):
@@ -998,14 +998,14 @@ def _modal_crossing_gains(md: _Modal, lines: np.ndarray) -> list[np.ndarray]:
 
     h = imag_ratio(mu, r, w)
     fin = np.isfinite(h)
-    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+    ii, jj, kk = _sign_brackets(h, fin)
 
     def fh(li, x):
         val = _modal_G(mu[li], r[li], np.exp(1j * np.asarray(x))[:, None])[:, 0]
         with np.errstate(all="ignore"):
             return val.imag / np.abs(val)
 
-    wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+    wr = _illinois(fh, ii, w[ii, jj], w[ii, kk], h[ii, jj], h[ii, kk])
     val = _modal_G(mu[ii], r[ii], np.exp(1j * wr)[:, None])[:, 0]
     pts, gains = [], []
     with np.errstate(all="ignore"):
@@ -1427,6 +1427,16 @@ def _base_grid(fs_max: float) -> np.ndarray:
     return np.unique(np.concatenate([np.geomspace(w_lo, math.pi, _N_LOG), np.linspace(0.0, math.pi, _N_LIN + 1)[1:]]))
 
 
+def _sign_brackets(h: np.ndarray, fin: np.ndarray):
+    """Brackets of the zeros of sampled functions ``h [S, F]`` (finite where
+    ``fin``): ``(row, left, right)`` index arrays of the sign changes between
+    neighbours, plus the samples that are exactly zero (left = right), which
+    a sign test alone would miss (a crossing exactly on a grid point)."""
+    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+    i0, j0 = np.nonzero((h == 0) & fin)
+    return np.concatenate([ii, i0]), np.concatenate([jj, j0]), np.concatenate([jj + 1, j0])
+
+
 def _illinois(f, pts, a, b, fa, fb, iters: int = 40, xtol: float = 1e-13):
     """Vectorised regula falsi (Illinois variant) for sign changes of
     ``f(pts, w)`` in [a, b]; returns the roots."""
@@ -1480,8 +1490,8 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         # gain crossovers |L| = 1 and the phase margin there
         g = np.log(absL)
         fin = np.isfinite(g)
-        ii, jj = np.nonzero((np.sign(g[:, :-1]) * np.sign(g[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
-        wx = _illinois(lambda p, x: np.log(np.abs(L1(p, x))), ii, w[ii, jj], w[ii, jj + 1], g[ii, jj], g[ii, jj + 1])
+        ii, jj, kk = _sign_brackets(g, fin)
+        wx = _illinois(lambda p, x: np.log(np.abs(L1(p, x))), ii, w[ii, jj], w[ii, kk], g[ii, jj], g[ii, kk])
         v = L1(ii, wx)
         pm = np.abs(_wrap_deg(180.0 + np.degrees(np.angle(v))))
         pm_min = np.full(S, np.inf)
@@ -1490,13 +1500,13 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         # real-axis crossings with L < 0: controller factors k = -1/L
         h = L.imag / absL
         fin = np.isfinite(h)
-        ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+        ii, jj, kk = _sign_brackets(h, fin)
 
         def fh(p, x):
             val = L1(p, x)
             return val.imag / np.abs(val)
 
-        wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+        wr = _illinois(fh, ii, w[ii, jj], w[ii, kk], h[ii, jj], h[ii, kk])
         v = L1(ii, wr)
         real = np.isfinite(v) & (np.abs(v.imag) <= 1e-7 * np.abs(v)) & (v.real < 0)
         k_pt = [ii[real]]

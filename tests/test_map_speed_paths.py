@@ -232,3 +232,34 @@ def test_controller_blocks_response_matches_their_state_space(backend):
                 n = A.shape[-1]
                 ref[k] += (C @ np.linalg.solve(zz * np.eye(n) - A, B))[0, 0] + D[0, 0] if n else D[0, 0]
         np.testing.assert_allclose(got[0], ref, rtol=1e-10)
+
+
+def test_crossing_exactly_on_a_frequency_grid_point_is_found(backend):
+    # the lossless damping loop at fr/fs = 0.12 has its resonance at
+    # w = 0.24 pi, a point of the frequency grid, where Im G is exactly 0
+    # (no sign change to bracket). Reference: the Jury-test closed form
+    # 0 < k < 2 cos(theta) - 1 below the critical ratio, k = Hi sin(theta) /
+    # (wr L1) (E. I. Jury, "Theory and Application of the z-Transform
+    # Method", Wiley, 1964, derived with sympy in tests/test_maps.py;
+    # Parker, McGrath and Holmes, IEEE Trans. Ind. Appl., vol. 50, no. 1,
+    # 2014; from memory)
+    from loopcheck.discretize import discretize_plant
+    from loopcheck.plant import OUTPUT_IC, lcl_state_space
+
+    L1, L2, FS, ratio = 1.9e-3, 0.7e-3, 12e3, 0.12
+    theta = 2 * np.pi * ratio
+    wr = theta * FS
+    p = lcl_state_space(L1, (L1 + L2) / (L1 * L2 * wr**2), L2)
+    dp = discretize_plant(p.A, p.B, p.C, 1.0 / FS, 1.0)
+    A, B, cic = dp.A, dp.B, dp.C[OUTPUT_IC : OUTPUT_IC + 1, :]
+    # the part the capacitor current observes (the lossless plant keeps an
+    # unobservable pole at z = 1)
+    O = np.vstack([cic @ np.linalg.matrix_power(A, i) for i in range(4)])
+    _, s, Vt = np.linalg.svd(O)
+    Q = Vt[: int(np.sum(s > 1e-9 * s[0]))]
+    to_k = np.sin(theta) / (wr * L1)
+    y = np.linspace(-4.0 / to_k, 4.0 / to_k, 7)
+    lines, _ = maps.gain_lines((Q @ A @ Q.T)[None], (-(Q @ B) @ (cic @ Q.T))[None], y)
+    ivs = lines[0].intervals(y[0], y[-1])
+    assert len(ivs) == 1
+    assert tuple(v * to_k for v in ivs[0]) == pytest.approx((0.0, 2 * np.cos(theta) - 1), abs=1e-9)
