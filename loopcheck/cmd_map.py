@@ -100,7 +100,9 @@ def map_command(
         write_figure(fig, output, dpi=150)
     if csv_path is not None:
         try:
-            atomic_write_text(csv_path, csv_text(smap))
+            from loopcheck.map_table import csv_text as map_csv_text
+
+            atomic_write_text(csv_path, map_csv_text(smap))
         except OSError as exc:
             write_failure("--csv", csv_path, exc)
     from loopcheck.range_verdict import case_verdict_line, headline
@@ -120,10 +122,6 @@ def map_command(
 
 # --- rendering of the results (text only; numpy imported lazily) -------------
 
-#: CSV numbers are written with repr(): the shortest text that reads back as
-#: the same double, so every row can be recomputed exactly.
-
-
 def _metric_columns(smap) -> list[tuple[str, object]]:
     cols = []
     if smap.phase_margin_deg is not None:
@@ -133,35 +131,6 @@ def _metric_columns(smap) -> list[tuple[str, object]]:
     if smap.sensitivity_peak is not None:
         cols += [("sensitivity_peak", smap.sensitivity_peak), ("sensitivity_peak_hz", smap.sensitivity_peak_hz)]
     return cols
-
-
-def csv_text(smap) -> str:
-    """One row per grid point (x outer, y inner): every parameter that
-    varies across the map under its case-file name in SI base units, then
-    ``stable`` (0/1), ``spectral_radius`` and the requested metrics (empty
-    where undefined, ``inf`` for an unbounded upper gain margin)."""
-    names = list(smap.parameters)
-    cols = [smap.parameters[k].T.ravel() for k in names]
-    names += ["stable", "spectral_radius"]
-    cols += [smap.stable.T.ravel(), smap.spectral_radius.T.ravel()]
-    for k, arr in _metric_columns(smap):
-        names.append(k)
-        cols.append(arr.T.ravel())
-    import numpy as np
-
-    text_cols = []
-    for c in cols:
-        if c.dtype == bool:
-            text_cols.append(np.array(["0", "1"])[c.astype(int)].tolist())
-            continue
-        uniq, inv = np.unique(c, return_inverse=True)
-        if uniq.size < c.size // 4:  # parameters repeat along one axis: format each value once
-            words = np.array(["" if v != v else repr(v) for v in uniq.tolist()], dtype=object)
-            text_cols.append(words[inv.ravel()].tolist())
-        else:
-            text_cols.append(["" if v != v else repr(v) for v in c.tolist()])
-    rows = map(",".join, zip(*text_cols))
-    return ",".join(names) + "\n" + "\n".join(rows) + "\n"
 
 
 def _axis_record(ax) -> dict:
@@ -192,6 +161,8 @@ def json_record(smap, case_path: str, figure, csv_path) -> dict:
             for x, ivs, b, m in zip(smap.x_values, smap.intervals, smap.boundaries, smap.boundary_method)
         ],
         "metrics": [k for k, _ in _metric_columns(smap)],
+        "polynomial_path_columns": smap.boundary_path.count("polynomial"),
+        "kernels": smap.kernels,
         "figure": str(figure) if figure is not None else None,
         "csv": str(csv_path) if csv_path is not None else None,
     }
@@ -241,6 +212,9 @@ def summary_text(smap, case_path: str, figure, csv_path) -> str:
         )
         if smap.x.is_gain and not smap.y.is_gain:
             lines.append(f"  hint: the gain {xn} on the y axis (--x {yn} --y {xn}) gives exact boundaries in every column")
+    n_poly = smap.boundary_path.count("polynomial")
+    if n_poly:
+        lines.append(f"  {n_poly} of {len(methods)} columns took the slower polynomial path (near-defective modal basis)")
     if figure is not None:
         lines.append(f"  figure: {figure}")
     if csv_path is not None:

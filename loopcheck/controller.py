@@ -33,7 +33,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import expm
 
 
 @dataclass(frozen=True)
@@ -125,6 +124,8 @@ def resonator_block(Kr, w0_rad_s, wc_rad_s, Ts, method: str) -> DiscreteSS:
         M = np.zeros(batch + (3, 3))
         M[..., :2, :2] = A * Ts[..., None, None]
         M[..., :2, 2:] = B * Ts[..., None, None]
+        from scipy.linalg import expm  # lazily: the map path does not need scipy
+
         E = expm(M)
         Ad = E[..., :2, :2]
         if method == "zoh":

@@ -24,4 +24,7 @@ def save_figure(fig, path: str | os.PathLike, dpi: int = 130) -> None:
     FigureCanvasAgg(fig)
     fmt = os.fspath(path).rsplit(".", 1)[-1].lower()
     with matplotlib.rc_context({"svg.hashsalt": "loopcheck"}):
-        fig.savefig(path, dpi=dpi, bbox_inches="tight", metadata=_METADATA.get(fmt), format=fmt)
+        # a figure that lays itself out completely (attribute set by its
+        # builder) is saved as it is: a tight bounding box costs a second draw
+        bbox = None if getattr(fig, "loopcheck_fits", False) else "tight"
+        fig.savefig(path, dpi=dpi, bbox_inches=bbox, metadata=_METADATA.get(fmt), format=fmt)

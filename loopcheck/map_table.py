@@ -32,6 +32,10 @@ from loopcheck.units import UnitError, parse_quantity_unit, shown
 MAP_KEYS = ("x", "x_range", "x_points", "x_scale", "y", "y_range", "y_points", "y_scale", "metrics")
 #: Bounds of the number of grid values per axis.
 POINTS_MIN, POINTS_MAX = 2, 5000
+#: Largest number of grid points of one map (peak memory about 1.6 GB at
+#: 3000 x 3000 with the figure, measured by benchmarks/bench_map_wide.py;
+#: 5000 x 5000 would need about 4 GB).
+GRID_POINTS_MAX = 9_000_000
 DEFAULT_POINTS = {"x": 300, "y": 200}
 #: Largest fr/fs accepted on an axis (the resonance must stay below fs/2).
 RATIO_MAX = 0.499
@@ -282,6 +286,14 @@ def map_spec(case, overrides: Overrides | None = None):
     except ValueError as exc:
         label = "--y" if ov.y is not None else f"{where} y"
         raise _err(label, str(exc)) from None
+    total = axes["x"].points * axes["y"].points
+    if total > GRID_POINTS_MAX:
+        ax = "x" if axes["x"].points >= axes["y"].points else "y"
+        raise _err(
+            source(f"{ax}_points")[1],
+            f"{axes['x'].points} x {axes['y'].points} = {total} grid points is more than a map holds in memory "
+            f"(at most {GRID_POINTS_MAX}, e.g. 3000 x 3000); use fewer x_points or y_points",
+        )
     raw_m, label_m = source("metrics")
     metrics = () if raw_m is None else _read_metrics(raw_m, label_m, METRICS)
     spec = MapSpec(axes["x"], axes["y"], metrics)
@@ -342,3 +354,65 @@ def _check_resonance(case, spec, source) -> None:
         f"the LCL resonance reaches fs/2 on this map (fr/fs = {float(ratio[i]):.3g} at "
         f"{spec.x.name} = {float(X[i]):.4g}, {spec.y.name} = {float(Y[i]):.4g}); narrow the range",
     )
+
+
+# ---------------------------------------------------------------------------
+# the CSV of a computed map
+# ---------------------------------------------------------------------------
+
+
+def _words(values) -> list[str]:
+    """Shortest round-trip text of each float (repr), "" for NaN."""
+    words = list(map(repr, values))
+    if "nan" in words:
+        words = ["" if w == "nan" else w for w in words]
+    return words
+
+
+def _column_words(arr, ny: int, nx: int) -> list[str]:
+    """Text of a ``[ny, nx]`` map array in CSV row order (x outer, y inner).
+    Values that depend on x only or y only are formatted once each."""
+    import numpy as np
+
+    a = np.asarray(arr)
+    if a.dtype == bool:
+        return np.array(["0", "1"])[a.T.ravel().astype(int)].tolist()
+    if a.shape != (ny, nx):
+        a = np.broadcast_to(a, (ny, nx))
+    same = (a == a[:1, :]) | (np.isnan(a) & np.isnan(a[:1, :]))
+    if same.all():  # depends on x only: each word repeated ny times
+        return [w for w in _words(a[0].tolist()) for _ in range(ny)]
+    same = (a == a[:, :1]) | (np.isnan(a) & np.isnan(a[:, :1]))
+    if same.all():  # depends on y only: the same ny words in every x block
+        return _words(a[:, 0].tolist()) * nx
+    return _words(a.T.ravel().tolist())
+
+
+def csv_text(smap) -> str:
+    """CSV of a :class:`loopcheck.maps.StabilityMap`: one row per grid point
+    (x outer, y inner): every parameter that varies across the map under
+    its case-file name in SI base units, then ``stable`` (0/1),
+    ``spectral_radius`` and the requested metrics (empty where undefined,
+    ``inf`` for an unbounded upper gain margin). Numbers are the shortest
+    text that reads back as the same double (``repr``)."""
+    ny, nx = smap.stable.shape
+    names = list(smap.parameters)
+    arrays = [smap.parameters[k] for k in names]
+    names += ["stable", "spectral_radius"]
+    arrays += [smap.stable, smap.spectral_radius]
+    metrics = (
+        ("phase_margin_deg", smap.phase_margin_deg),
+        ("gain_margin_lower_factor", smap.gain_margin_lower),
+        ("gain_margin_upper_factor", smap.gain_margin_upper),
+        ("sensitivity_peak", smap.sensitivity_peak),
+        ("sensitivity_peak_hz", smap.sensitivity_peak_hz),
+    )
+    for k, arr in metrics:
+        if arr is not None:
+            names.append(k)
+            arrays.append(arr)
+    cols = [_column_words(a, ny, nx) for a in arrays]
+    rows = list(map(",".join, zip(*cols)))
+    rows.insert(0, ",".join(names))
+    rows.append("")
+    return "\n".join(rows)

@@ -38,7 +38,19 @@ state-space matrix (never by the polynomial), and every boundary that
 changes the verdict is verified by eigenvalues just beside it, or located by
 eigenvalue bisection where that check fails.
 
-The slower exact path: where the polynomial is ill-conditioned (roots
+The modal path (used first along a gain, :func:`gain_lines`): the
+monomial coefficients are never formed. With ``A(y) = A(b) + (y - b) u
+v^T`` and the balanced eigendecomposition ``A(b) = V diag(mu) V^-1``,
+residues ``r = (v^T V) o (V^-1 u)`` give ``det(zI - A(y)) = prod_k (z -
+mu_k) (1 - (y - b) sum_k r_k/(z - mu_k))``; the candidate gains are
+``b + 1/G(e^{jw})`` where ``G = sum_k r_k/(z - mu_k)`` is real, plus z =
++-1, classified by eigenvalues as above, and the radius follows every root
+in this product form (:mod:`loopcheck.map_kernels`). Lines with a
+near-defective eigenvector matrix, or whose followed radius contradicts the
+intervals or the eigenvalues at the last grid value, take the polynomial
+path below.
+
+The slower exact path of the polynomial route: where the polynomial is ill-conditioned (roots
 clustered near z = 1 at very low fr/fs, many resonators, high fs; detected
 by comparing its roots with state-space eigenvalues), the candidate gains
 come from the frequency response instead: with ``A1 = u v^T``,
@@ -77,6 +89,9 @@ References
    Damping Control for LCL Filters", IEEE Trans. Ind. Appl., vol. 50,
    no. 1, pp. 424-432, 2014 (the critical ratio fr/fs = 1/6 drawn on maps;
    from memory).
+.. [6] B. N. Parlett and C. Reinsch, "Balancing a matrix for calculation
+   of eigenvalues and eigenvectors", Numer. Math., vol. 13, pp. 293-304,
+   1969 (diagonal balancing before the modal decomposition; from memory).
 
 Newton's method on polynomial roots and Newton's identities between roots
 and coefficients, used by :func:`track_radius`, are common practice.
@@ -96,7 +111,6 @@ from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space
-from .margins import POLE_AT_POINT_TOL
 from .verdict import TOLERANCE
 
 #: Parameters a map axis can sweep (case-file names; "fr/fs" is a ratio).
@@ -195,6 +209,11 @@ class StabilityMap:
     [controller-gain factor, -; upper inf when unbounded],
     sensitivity_peak [-] and sensitivity_peak_hz [Hz]: the requested
     metrics (None when not requested; NaN where undefined, e.g. not stable).
+    boundary_path: per x value, how the column was computed along a gain
+    axis: ``"modal"`` (the fast modal path) or ``"polynomial"`` (the
+    fallback for near-defective modal bases, see :func:`gain_lines`), or
+    ``"grid"`` without a gain on the y axis. kernels: ``"numba"`` or
+    ``"numpy"``, the inner loops used (:mod:`loopcheck.map_kernels`).
     design_x, design_y: the case's own values on the axes [axis units];
     design_stable: its verdict; design_interval: the stable y interval at
     x = design_x that contains design_y over the whole gain line (not the
@@ -236,6 +255,8 @@ class StabilityMap:
     sensitivity_peak: np.ndarray | None = None
     sensitivity_peak_hz: np.ndarray | None = None
     design_line: object | None = None
+    boundary_path: tuple = ()
+    kernels: str = ""
 
     def to_dict(self) -> dict:
         """Plain dict of every field (arrays as nested lists; None for non-finite numbers)."""
@@ -528,11 +549,14 @@ def crossing_gains(p0: np.ndarray, p1: np.ndarray) -> list[np.ndarray]:
 @dataclass
 class _LineIntervals:
     """Verdict pieces of one line: boundaries (ascending) and whether the
-    piece below the first boundary is stable; method "exact" or "refined"."""
+    piece below the first boundary is stable; method "exact" or "refined";
+    path: "modal" or "polynomial" along a gain (see :func:`gain_lines`),
+    "grid" for verdicts on the grid refined by bisection."""
 
     boundaries: np.ndarray
     first_stable: bool
     method: str
+    path: str = "grid"
 
     def intervals(self, lo: float, hi: float) -> tuple:
         edges = [lo] + list(self.boundaries) + [hi]
@@ -767,14 +791,14 @@ def frequency_crossing_gains(A0: np.ndarray, A1: np.ndarray) -> list[np.ndarray]
     with np.errstate(all="ignore"):
         h = g.imag / np.abs(g)
     fin = np.isfinite(h)
-    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+    ii, jj, kk = _sign_brackets(h, fin)
 
     def fh(li, x):
         val = G(li, np.asarray(x)[:, None])[:, 0]
         with np.errstate(all="ignore"):
             return val.imag / np.abs(val)
 
-    wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+    wr = _illinois(fh, ii, w[ii, jj], w[ii, kk], h[ii, jj], h[ii, kk])
     val = G(ii, wr[:, None])[:, 0]
     cands: list[list[float]] = [[] for _ in range(m)]
     with np.errstate(all="ignore"):
@@ -803,7 +827,7 @@ def _refined_lines(evaluate, stable, y, span: float) -> list[_LineIntervals]:
     ]
 
 
-def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
+def _gain_lines_poly(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
     """Stability along lines ``A(y) = A0 + y A1`` (``A0, A1 [m, n, n]``, A1 of
     rank one; y ascending grid of the gain).
 
@@ -843,6 +867,247 @@ def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = 
             redo = _refined_lines(lambda li, yy: evaluate(kw[li], yy), radius[:, kw] < 1.0 - tol, y, hi - lo)
             for i, ln in zip(kw, redo):
                 lines[i] = ln
+    return lines, radius
+
+
+# ---------------------------------------------------------------------------
+# the modal path along a gain: no monomial coefficients
+# ---------------------------------------------------------------------------
+
+#: Eigenvector-matrix condition number above which a line's modal form is
+#: not trusted (the line then takes the polynomial path).
+MODAL_COND_LIMIT = 1e10
+#: Second singular value of A1 relative to the first above which A1 does not
+#: count as rank one (the line then takes the polynomial path).
+RANK_ONE_TOL = 1e-9
+
+
+@dataclass(frozen=True, eq=False)
+class _Modal:
+    """Lines ``A(y) = A0 + y A1`` with ``A1 = u v^T`` in modal form around a
+    base gain: ``A(base) = V diag(mu) V^-1`` (after diagonal balancing),
+    residues ``r = (v^T V) o (V^-1 u)``, so that ``det(zI - A(y)) =
+    prod_k (z - mu_k) (1 - (y - base) sum_k r_k / (z - mu_k))``.
+
+    mu, r: ``[m, n]`` complex; base: ``[m]`` [y unit]; cond: eigenvector
+    condition number ``[m]``; ok: lines whose modal form is usable."""
+
+    mu: np.ndarray
+    r: np.ndarray
+    base: np.ndarray
+    cond: np.ndarray
+    ok: np.ndarray
+
+
+def _rank_one(A1: np.ndarray):
+    """``(u [m, n], v [m, n], ok [m])`` with ``A1 ~ u v^T``; ok where the
+    second singular value is below :data:`RANK_ONE_TOL` of the first."""
+    U, sv, Vt = np.linalg.svd(A1)
+    u = U[:, :, 0] * sv[:, :1]
+    v = Vt[:, 0, :]
+    ok = sv[:, 0] > 0
+    if sv.shape[1] > 1:
+        ok &= sv[:, 1] <= RANK_ONE_TOL * sv[:, 0]
+    return u, v, ok
+
+
+def _balance(A: np.ndarray, sweeps: int = 20):
+    """Diagonal balancing of a stack ``A [m, n, n]`` by powers of two (the
+    row/column norm equalisation of Parlett & Reinsch, "Balancing a matrix
+    for calculation of eigenvalues and eigenvectors", Numer. Math. 13,
+    1969, as in LAPACK xGEBAL; from memory). Returns ``(D^-1 A D, d)`` with
+    ``D = diag(d)``; the eigenvalues are unchanged, the eigenvector matrix
+    of the result is usually far better conditioned when the states have
+    very different units."""
+    A = np.array(A, dtype=float)
+    m, n = A.shape[0], A.shape[-1]
+    d = np.ones((m, n))
+    absA = np.abs(A)
+    diag = np.arange(n)
+    absA[:, diag, diag] = 0.0
+    for _ in range(sweeps):
+        changed = False
+        for i in range(n):
+            c = absA[:, :, i].sum(axis=1)
+            r = absA[:, i, :].sum(axis=1)
+            with np.errstate(all="ignore"):
+                f = np.exp2(np.round(0.5 * np.log2(r / c)))
+                good = (c > 0) & (r > 0) & np.isfinite(f) & (f != 1.0)
+                good &= c * f + r / f < 0.95 * (c + r)
+            if not good.any():
+                continue
+            changed = True
+            f = np.where(good, f, 1.0)
+            absA[:, :, i] *= f[:, None]
+            absA[:, i, :] /= f[:, None]
+            A[:, :, i] *= f[:, None]
+            A[:, i, :] /= f[:, None]
+            d[:, i] *= f
+        if not changed:
+            break
+    return A, d
+
+
+def _modal_form(A0: np.ndarray, A1: np.ndarray, lo: float, hi: float) -> _Modal:
+    """Modal form of the lines (see :class:`_Modal`), balanced; the base
+    gain is the lower end of the range, or the middle or the upper end
+    where the eigenvectors there are better conditioned."""
+    m, n = A0.shape[0], A0.shape[-1]
+    u, v, rank_ok = _rank_one(A1)
+    mu = np.zeros((m, n), dtype=complex)
+    r = np.zeros((m, n), dtype=complex)
+    base = np.full(m, lo)
+    cond = np.full(m, np.inf)
+    todo = np.arange(m)
+    for b in (lo, 0.5 * (lo + hi), hi):
+        if todo.size == 0:
+            break
+        Ab, dd = _balance(A0[todo] + b * A1[todo])
+        lam, V = np.linalg.eig(Ab)
+        with np.errstate(all="ignore"):
+            c = np.linalg.cond(V)
+        good = np.isfinite(c) & (c < MODAL_COND_LIMIT)
+        k = todo[good]
+        if k.size:
+            Vg = V[good]
+            a = np.linalg.solve(Vg, (u[k] / dd[good])[:, :, None])[:, :, 0]
+            bb = ((v[k] * dd[good])[:, None, :] @ Vg)[:, 0, :]
+            mu[k], r[k], base[k], cond[k] = lam[good], a * bb, b, c[good]
+        todo = todo[~good]
+    ok = rank_ok & np.isfinite(cond)
+    return _Modal(mu, r, base, cond, ok)
+
+
+def _modal_G(mu: np.ndarray, r: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """``G(z) = sum_k r_k / (z - mu_k)`` for lines ``mu, r [S, n]`` at
+    ``z [S, F]`` (:func:`loopcheck.map_kernels.modal_response`)."""
+    from .map_kernels import modal_response
+
+    return modal_response(mu, r, z)
+
+
+def _modal_crossing_gains(md: _Modal, lines: np.ndarray) -> list[np.ndarray]:
+    """Candidate gains of the given lines where a closed-loop root is on the
+    unit circle: ``y = base + 1/G(e^{jw})`` at the real crossings of G
+    (sign changes of Im G bracketed on a frequency grid clustered around
+    the poles near the circle, refined by regula falsi) and at z = +-1
+    (D-decomposition in the frequency domain; matrix determinant lemma).
+    Spurious values are harmless (every piece is classified by
+    eigenvalues); a crossing pair narrower than the grid could be missed,
+    which the caller's grid check detects."""
+    m = lines.size
+    mu, r, base = md.mu[lines], md.r[lines], md.base[lines]
+    near = (np.abs(mu) > 0.5) & (mu.imag > 1e-12)
+    ang = np.where(near, np.abs(np.angle(mu)), np.nan)
+    grid = np.unique(np.concatenate([np.geomspace(1e-6, math.pi, _N_LOG), np.linspace(0.0, math.pi, 2 * _N_LIN + 1)[1:]]))
+    offs = np.concatenate([1.0 - _CLUSTER[::-1], 1.0 + _CLUSTER])
+    wc = (ang[:, :, None] * offs[None, None, :]).reshape(m, -1)
+    wc = np.where(np.isfinite(wc) & (wc > 0) & (wc < math.pi), wc, math.pi)
+    w = np.sort(np.concatenate([np.broadcast_to(grid, (m, grid.size)), wc], axis=1), axis=1)
+    from .map_kernels import imag_ratio
+
+    h = imag_ratio(mu, r, w)
+    fin = np.isfinite(h)
+    ii, jj, kk = _sign_brackets(h, fin)
+
+    def fh(li, x):
+        val = _modal_G(mu[li], r[li], np.exp(1j * np.asarray(x))[:, None])[:, 0]
+        with np.errstate(all="ignore"):
+            return val.imag / np.abs(val)
+
+    wr = _illinois(fh, ii, w[ii, jj], w[ii, kk], h[ii, jj], h[ii, kk])
+    val = _modal_G(mu[ii], r[ii], np.exp(1j * wr)[:, None])[:, 0]
+    pts, gains = [], []
+    with np.errstate(all="ignore"):
+        ok = np.isfinite(val) & (np.abs(val.imag) <= 1e-7 * np.abs(val)) & (np.abs(val) > 0)
+        pts.append(ii[ok])
+        gains.append(base[ii[ok]] + 1.0 / val.real[ok])
+        for z0 in (1.0, -1.0):
+            g0 = _modal_G(mu, r, np.full((m, 1), z0, dtype=complex))[:, 0]
+            ok0 = np.isfinite(g0) & (np.abs(g0) > 0)
+            pts.append(np.nonzero(ok0)[0])
+            gains.append(base[ok0] + 1.0 / g0.real[ok0])
+    pts, gains = np.concatenate(pts), np.concatenate(gains)
+    order = np.argsort(pts, kind="stable")
+    split = np.searchsorted(pts[order], np.arange(m + 1))
+    return [gains[order[split[i] : split[i + 1]]] for i in range(m)]
+
+
+def _modal_radius(md: _Modal, lines: np.ndarray, A0, A1, y: np.ndarray, progress: ProgressFn | None = None):
+    """Spectral radius ``[len(y), S]`` of the given lines at the grid
+    values y (ascending), by following every closed-loop root in the
+    product form of :class:`_Modal` (no polynomial coefficients; see
+    :func:`loopcheck.map_kernels.follow_roots`: predictor, Newton steps,
+    trace checks). Where a line fails a check its roots are re-seeded from
+    the eigenvalues of ``A0 + y A1`` at that grid value and followed on
+    from there. Returns ``(radius, reseeded)``, the second the number of
+    re-seeded grid values."""
+    from .map_kernels import follow_roots
+
+    mu, r, base = md.mu[lines], md.r[lines], md.base[lines]
+    S = mu.shape[0]
+    out = np.empty((y.size, S))
+    todo = np.arange(S)
+    start = np.zeros(S, dtype=np.int64)
+    reseeded = 0
+    while todo.size:
+        seeds = np.linalg.eigvals(A0[lines[todo]] + y[start[todo]][:, None, None] * A1[lines[todo]])
+        sub = np.empty((y.size, todo.size))
+        fail = follow_roots(mu[todo], r[todo], base[todo], y, seeds, start[todo], sub)
+        for col, i in enumerate(todo):
+            hi = fail[col] if fail[col] >= 0 else y.size
+            out[start[i] : hi, i] = sub[start[i] : hi, col]
+        again = fail >= 0
+        todo, start = todo[again], start.copy()
+        start[todo] = fail[again]
+        reseeded += todo.size
+    if progress is not None:
+        progress(1.0)
+    return out, reseeded
+
+
+def gain_lines(A0, A1, y, tol: float = TOLERANCE, progress: ProgressFn | None = None):
+    """Stability along lines ``A(y) = A0 + y A1`` (``A0, A1 [m, n, n]``, A1 of
+    rank one; y ascending grid of the gain).
+
+    Returns ``(lines, radius)``: per line a :class:`_LineIntervals` with the
+    exact boundaries (D-decomposition, see the module docstring) over
+    [y[0], y[-1]], and the spectral radius ``[len(y), m]``.
+
+    First the modal path (:func:`_modal_form`): candidate gains from the
+    frequency response in modal form, each piece classified and each
+    boundary confirmed by eigenvalues (:func:`_classify`), the radius
+    followed in the product form (:func:`_modal_radius`). A line whose A1 is
+    not rank one, whose eigenvector matrix is near-defective, whose exact
+    intervals contradict the followed radius on the grid, or whose radius at
+    the last grid value differs from the eigenvalues there, takes the
+    polynomial path (:func:`_gain_lines_poly`, with its own slower exact
+    path). ``lines[i].path`` says which path a line took."""
+    lo, hi = float(y[0]), float(y[-1])
+    m = A0.shape[0]
+    lines: list = [None] * m
+    radius = np.empty((y.size, m))
+    md = _modal_form(A0, A1, lo, hi)
+    fast = np.nonzero(md.ok)[0]
+    if fast.size:
+        fl, _ = _classify(A0[fast], A1[fast], _modal_crossing_gains(md, fast), lo, hi, tol)
+        rad, _ = _modal_radius(md, fast, A0, A1, y, progress)
+        flags = np.stack([ln.flags(y) for ln in fl], axis=1)
+        bad = ((flags != (rad < 1.0 - tol)) & (np.abs(rad - 1.0) > 1e-7)).any(axis=0)
+        r_end = _radius(A0[fast] + y[-1] * A1[fast])
+        bad |= ~(np.abs(r_end - rad[-1]) <= 1e-9 * np.maximum(1.0, r_end))
+        for col, i in enumerate(fast):
+            if not bad[col]:
+                fl[col].path = "modal"
+                lines[i] = fl[col]
+                radius[:, i] = rad[:, col]
+    slow = np.array([i for i in range(m) if lines[i] is None], dtype=int)
+    if slow.size:
+        sl, srad = _gain_lines_poly(A0[slow], A1[slow], y, tol)
+        for col, i in enumerate(slow):
+            sl[col].path = "polynomial"
+            lines[i] = sl[col]
+            radius[:, i] = srad[:, col]
     return lines, radius
 
 
@@ -918,6 +1183,12 @@ def _column_lines(design: Design, spec: MapSpec, xv, yv, tol, progress):
     return lines, stable, radius
 
 
+def _kernels() -> str:
+    from .map_kernels import BACKEND, _JIT
+
+    return BACKEND if _JIT is not None else "numpy"
+
+
 def _varying_parameters(design: Design, spec: MapSpec, xv, yv) -> dict:
     X, Y = np.broadcast_arrays(xv[None, :], yv[:, None])
     prm = point_parameters(design, {spec.x.name: xv[None, :], spec.y.name: yv[:, None]})
@@ -974,6 +1245,8 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
         intervals=tuple(ln.intervals(lo, hi) for ln in lines),
         boundaries=tuple(tuple(float(b) for b in ln.boundaries) for ln in lines),
         boundary_method=tuple(ln.method for ln in lines),
+        boundary_path=tuple(ln.path for ln in lines),
+        kernels=_kernels(),
         parameters=_varying_parameters(design, spec, xv, yv),
         design_x=float(x0),
         design_y=float(y0),
@@ -1041,19 +1314,21 @@ class _LoopData:
         self.Ts = 1.0 / prm["fs"]
         blocks = controller_blocks(design.control, design.grid.f_hz, self.Ts_u, Kp=0.0, Ki=1.0, Kr=1.0)
         self.blocks = [b for b in blocks[1:]]
+        # each block of order <= 2 as (n1 z + n0) / (z^2 + a1 z + a0) + d
+        # (first order: n1 / (z + a1) + d) per sampling period, from its own
+        # realisation; nothing is multiplied across blocks. Arrays [T, blocks]
+        self._unit_coef = self._block_coefficients()
         # controller poles (resonators, integrator) for the frequency clusters
         self.ctrl_angles = [np.abs(np.angle(np.linalg.eigvals(b.A))) for b in self.blocks if b.order > 0]
 
     def plant(self, pi, z, which: str):
         """Plant response at points ``pi [S]`` and ``z [S, F]``."""
+        from .map_kernels import modal_response
+
         u = self.pidx[pi]
         res = self.r_fb if which == "fb" else self.r_ic
-        lam = self.lam[u]
-        r = res[u]
-        out = np.zeros(z.shape, dtype=complex)
+        out = modal_response(self.lam[u], res[u], np.broadcast_to(z, (u.size,) + z.shape[1:]))
         with np.errstate(all="ignore"):
-            for k in range(lam.shape[1]):
-                out += r[:, k : k + 1] / (z - lam[:, k : k + 1])
             bad = self.direct[u]
             if bad.any():
                 c = self.plants.c_fb if which == "fb" else self.plants.c_ic
@@ -1064,31 +1339,45 @@ class _LoopData:
                 out[bad] = (c[ub][:, None] @ x)[..., 0, 0]
         return out
 
+    def _block_coefficients(self):
+        """Per sampling period and block, ``(n1, n0, a1, a0, d)`` with the
+        block's response ``(n1 z + n0) / (z^2 + a1 z + a0) + d`` (a
+        first-order block c b / (z - a) as ``(c b z) / (z^2 - a z)``, a
+        static one as ``d``), from its own realisation; nothing is
+        multiplied across blocks. Array ``[T, 5, blocks]``."""
+        T = self.Ts_u.size
+        nb = len(self.blocks)
+        co = np.zeros((T, 5, nb))
+        for j, b in enumerate(self.blocks):
+            A, B, C, D = (np.broadcast_to(m, (T,) + m.shape[-2:]) for m in (b.A, b.B, b.C, b.D))
+            co[:, 4, j] = D[:, 0, 0]
+            if b.order == 1:
+                co[:, 0, j] = C[:, 0, 0] * B[:, 0, 0]
+                co[:, 2, j] = -A[:, 0, 0]
+            elif b.order == 2:
+                a11, a12, a21, a22 = A[:, 0, 0], A[:, 0, 1], A[:, 1, 0], A[:, 1, 1]
+                b1, b2 = B[:, 0, 0], B[:, 1, 0]
+                c1, c2 = C[:, 0, 0], C[:, 0, 1]
+                co[:, 0, j] = c1 * b1 + c2 * b2
+                co[:, 1, j] = -c1 * a22 * b1 + c1 * a12 * b2 + c2 * a21 * b1 - c2 * a11 * b2
+                co[:, 2, j] = -(a11 + a22)
+                co[:, 3, j] = a11 * a22 - a12 * a21
+            elif b.order > 2:
+                raise ValueError("controller blocks above second order are not supported here")
+        return co
+
     def unit_controller(self, pi, z):
         """U(z) at points ``pi [S]``, ``z [S, F]`` (zero for a P controller)."""
-        t = self.tidx[pi]
-        out = np.zeros(z.shape, dtype=complex)
-        with np.errstate(all="ignore"):
-            for b in self.blocks:
-                A, B, C, D = b.A[t], b.B[t], b.C[t], b.D[t]
-                if b.order == 1:
-                    out += (C[:, 0, 0] * B[:, 0, 0])[:, None] / (z - A[:, 0, 0][:, None]) + D[:, 0, 0][:, None]
-                elif b.order == 2:
-                    a11, a12, a21, a22 = (A[:, i, j][:, None] for i, j in ((0, 0), (0, 1), (1, 0), (1, 1)))
-                    b1, b2 = B[:, 0, 0][:, None], B[:, 1, 0][:, None]
-                    c1, c2 = C[:, 0, 0][:, None], C[:, 0, 1][:, None]
-                    det = (z - a11) * (z - a22) - a12 * a21
-                    x1 = (z - a22) * b1 + a12 * b2
-                    x2 = a21 * b1 + (z - a11) * b2
-                    out += (c1 * x1 + c2 * x2) / det + D[:, 0, 0][:, None]
-                else:
-                    out += D[:, 0, 0][:, None]
-        return out
+        if not self.blocks:
+            return np.zeros(z.shape, dtype=complex)
+        from .map_kernels import block_sum
+
+        return block_sum(self._unit_coef[self.tidx[pi]], z)
 
     def loop(self, pi, z):
         """L(z) at points ``pi [S]`` and ``z [S, F]``."""
-        gc = self.Kp[pi][:, None] + self.g[pi][:, None] * self.unit_controller(pi, z)
         with np.errstate(all="ignore"):
+            gc = self.Kp[pi][:, None] + self.g[pi][:, None] * self.unit_controller(pi, z)
             return gc * self.plant(pi, z, "fb") / (1.0 + self.Hi[pi][:, None] * self.plant(pi, z, "ic"))
 
     def loop_grid(self, pi, w: np.ndarray) -> np.ndarray:
@@ -1104,8 +1393,8 @@ class _LoopData:
         gfb = self.plant(rep_p, zp, "fb")[inv_p.ravel()]
         gic = self.plant(rep_p, zp, "ic")[inv_p.ravel()]
         unit = self.unit_controller(rep_t, np.broadcast_to(z, (ut.size, w.size)))[inv_t.ravel()]
-        gc = self.Kp[pi][:, None] + self.g[pi][:, None] * unit
         with np.errstate(all="ignore"):
+            gc = self.Kp[pi][:, None] + self.g[pi][:, None] * unit
             return gc * gfb / (1.0 + self.Hi[pi][:, None] * gic)
 
     def special_angles(self, pi) -> np.ndarray:
@@ -1127,6 +1416,16 @@ class _LoopData:
 def _base_grid(fs_max: float) -> np.ndarray:
     w_lo = 2.0 * math.pi * 0.5 / fs_max
     return np.unique(np.concatenate([np.geomspace(w_lo, math.pi, _N_LOG), np.linspace(0.0, math.pi, _N_LIN + 1)[1:]]))
+
+
+def _sign_brackets(h: np.ndarray, fin: np.ndarray):
+    """Brackets of the zeros of sampled functions ``h [S, F]`` (finite where
+    ``fin``): ``(row, left, right)`` index arrays of the sign changes between
+    neighbours, plus the samples that are exactly zero (left = right), which
+    a sign test alone would miss (a crossing exactly on a grid point)."""
+    ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+    i0, j0 = np.nonzero((h == 0) & fin)
+    return np.concatenate([ii, i0]), np.concatenate([jj, j0]), np.concatenate([jj + 1, j0])
 
 
 def _illinois(f, pts, a, b, fa, fb, iters: int = 40, xtol: float = 1e-13):
@@ -1159,6 +1458,8 @@ def _wrap_deg(x):
 def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
     """Margins of the points ``pi``: phase margin [deg], gain-margin factors
     (lower, upper), sensitivity peak and its angle [rad/sample]."""
+    from .margins import POLE_AT_POINT_TOL  # (scipy.optimize only when margins are asked for)
+
     S = pi.size
     Lb = data.loop_grid(pi, w_base)
     ang = data.special_angles(pi)
@@ -1180,8 +1481,8 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         # gain crossovers |L| = 1 and the phase margin there
         g = np.log(absL)
         fin = np.isfinite(g)
-        ii, jj = np.nonzero((np.sign(g[:, :-1]) * np.sign(g[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
-        wx = _illinois(lambda p, x: np.log(np.abs(L1(p, x))), ii, w[ii, jj], w[ii, jj + 1], g[ii, jj], g[ii, jj + 1])
+        ii, jj, kk = _sign_brackets(g, fin)
+        wx = _illinois(lambda p, x: np.log(np.abs(L1(p, x))), ii, w[ii, jj], w[ii, kk], g[ii, jj], g[ii, kk])
         v = L1(ii, wx)
         pm = np.abs(_wrap_deg(180.0 + np.degrees(np.angle(v))))
         pm_min = np.full(S, np.inf)
@@ -1190,13 +1491,13 @@ def _margins_chunk(data: _LoopData, pi: np.ndarray, w_base: np.ndarray):
         # real-axis crossings with L < 0: controller factors k = -1/L
         h = L.imag / absL
         fin = np.isfinite(h)
-        ii, jj = np.nonzero((np.sign(h[:, :-1]) * np.sign(h[:, 1:]) < 0) & fin[:, :-1] & fin[:, 1:])
+        ii, jj, kk = _sign_brackets(h, fin)
 
         def fh(p, x):
             val = L1(p, x)
             return val.imag / np.abs(val)
 
-        wr = _illinois(fh, ii, w[ii, jj], w[ii, jj + 1], h[ii, jj], h[ii, jj + 1])
+        wr = _illinois(fh, ii, w[ii, jj], w[ii, kk], h[ii, jj], h[ii, kk])
         v = L1(ii, wr)
         real = np.isfinite(v) & (np.abs(v.imag) <= 1e-7 * np.abs(v)) & (v.real < 0)
         k_pt = [ii[real]]
