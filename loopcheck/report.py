@@ -13,6 +13,7 @@ verdict    eigenvalue verdict, spectral radius, margins, crossings, poles
 frequency  Bode and Nyquist figures of this loop (P, N, Z stated)
 map        stability map with the design point
 weakgrid   weak-grid (grid inductance) table and plot
+impedance  output admittance, non-passive bands, impedance-ratio verdict
 gains      picked gains and exported firmware coefficients
 waveforms  simulated waveforms
 harmonics  harmonic check against the current-distortion limits
@@ -879,6 +880,40 @@ def build_harmonics(ctx: ReportContext) -> Section:
     return Section("harmonics", title, body)
 
 
+def build_impedance(ctx: ReportContext) -> Section:
+    """Output admittance, its non-passive bands and the impedance-ratio
+    verdict on the case's grid (``loopcheck.grid_network``,
+    ``loopcheck.admittance_plot``)."""
+    title = "Impedance view of the grid connection"
+    if not all(_has_module(m) for m in ("loopcheck.grid_network", "loopcheck.admittance_plot",
+                                         "loopcheck.impedance_text")):
+        return Section("impedance", title, not_available("The impedance view", "loopcheck.grid_network"), False)
+    from loopcheck.admittance_plot import impedance_figure
+    from loopcheck.grid_network import read_feedforward, read_grid_network, study
+    from loopcheck.impedance_text import impedance_text
+
+    case, d = ctx.case, ctx.design
+    ctx.progress("impedance view")
+    result = study(d, read_grid_network(case), feedforward=read_feedforward(case))
+    body = figure_html(
+        _png(impedance_figure(d, result, title=d.name or ""), ctx),
+        "Output admittance of the inverter with its non-passive bands shaded, the grid admittance, and the "
+        "Nyquist curve of the impedance ratio near -1",
+        "Output admittance Yo = -i2/vg seen from the grid (baseband component of the sampled loop, with the "
+        "hold and the computation delay): magnitude and phase, the bands where Re Yo < 0 (the inverter is "
+        "not passive there) shaded, the grid's admittance overlaid; below, the impedance ratio N Zg Yo near -1.",
+        "fig-impedance",
+    )
+    lines = [ln.strip() for ln in impedance_text(case, result).splitlines()[1:] if ln.strip()]
+    body += "<ul class='assume'>" + "".join(f"<li>{e(ln)}</li>" for ln in lines) + "</ul>"
+    body += (
+        "<p class='src'>The eigenvalue verdict is exact for a grid given as components; the impedance-ratio "
+        "verdict (Sun, IEEE Trans. Power Electron., 2011) uses the baseband admittance and is shown beside it. "
+        "Grid resonances falling in a non-passive band are the ones to avoid.</p>"
+    )
+    return Section("impedance", title, body)
+
+
 def assumption_items(design) -> list[str]:
     """The modelling assumptions behind the numbers (plain text)."""
     f, s = design.filter, design.sampling
@@ -929,6 +964,7 @@ SECTION_BUILDERS: tuple[tuple[str, Callable[[ReportContext], Section]], ...] = (
     ("frequency", build_frequency),
     ("map", build_map),
     ("weakgrid", build_weak_grid),
+    ("impedance", build_impedance),
     ("gains", build_gains),
     ("waveforms", build_waveforms),
     ("harmonics", build_harmonics),
@@ -1117,7 +1153,7 @@ def render_html(ctx: ReportContext, sections: list[Section]) -> str:
         f"<li><a href='#{e(s.id)}'>{e(s.title)}</a>{'' if s.available else ' <span class=off>(not available)</span>'}</li>"
         for s in sections
     )
-    major = {"verdict", "frequency", "map", "weakgrid", "gains", "waveforms", "harmonics", "assumptions"}
+    major = {"verdict", "frequency", "map", "weakgrid", "impedance", "gains", "waveforms", "harmonics", "assumptions"}
     body = []
     for i, s in enumerate(sections, 1):
         cls = "major" if (s.id in major and s.available) else ""  # no page for a one-line section

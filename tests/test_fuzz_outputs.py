@@ -185,14 +185,14 @@ def test_outputs_of_one_run_are_committed_together(tmp_path_factory, monkeypatch
     def broken(*a, **k):
         raise OSError(28, "No space left on device")
 
-    import loopcheck.cmd_map
     import loopcheck.figure_io
+    import loopcheck.map_table
 
     with monkeypatch.context() as m:
         if which == "figure":
             m.setattr(loopcheck.figure_io, "save_figure", broken)
         else:
-            m.setattr(loopcheck.cmd_map, "csv_text", broken)
+            m.setattr(loopcheck.map_table, "csv_text", broken)
         r = CliRunner().invoke(app, ["map", str(case), "-o", str(fig), "--csv", str(csv), "--x-points", "3",
                                      "--y-points", "3", "-q"], env=ENV)
     _one_line_exit_2(r, "No space left")
