@@ -15,7 +15,7 @@ __version__ = "0.1.0"
 
 _API = (
     "read_case", "case_from_dict", "analyse", "verdict_over_range", "stability_map", "design_point_line",
-    "sweep_grid", "pick_gain", "closed_loop_summary", "control_systems", "to_dict",
+    "sweep_grid", "pick_gain", "closed_loop_summary", "impedance_study", "control_systems", "to_dict",
 )
 
 __all__ = ["__version__", *_API]

@@ -17,7 +17,7 @@ import os
 
 __all__ = [
     "read_case", "case_from_dict", "analyse", "verdict_over_range", "stability_map", "design_point_line",
-    "sweep_grid", "pick_gain", "closed_loop_summary", "control_systems", "to_dict",
+    "sweep_grid", "pick_gain", "closed_loop_summary", "impedance_study", "control_systems", "to_dict",
 ]
 
 
@@ -147,6 +147,18 @@ def closed_loop_summary(case_or_design):
 
     d = _design(case_or_design)
     return characterise(d, analyse(d))
+
+
+def impedance_study(case_or_design):
+    """Output admittance, its non-passive bands and the impedance-ratio and
+    eigenvalue verdicts on the case's grid (``[grid_network]``,
+    ``[feedforward]``; a bare design: its own Lg and Rg):
+    a :class:`loopcheck.grid_network.ImpedanceStudy`."""
+    from .grid_network import read_feedforward, read_grid_network, study
+
+    if hasattr(case_or_design, "tables"):
+        return study(case_or_design.design, read_grid_network(case_or_design), feedforward=read_feedforward(case_or_design))
+    return study(case_or_design, None)
 
 
 def control_systems(case_or_design):

@@ -148,15 +148,22 @@ def tracking_at(loop, fs_hz: float, f_hz: float) -> Tracking:
 class ClosedLoopSummary:
     """Bandwidth [Hz] (None when undefined or the loop is not stable), the
     dominant poles (:class:`ClosedLoopPole`, slowest first) and the tracking
-    at the grid frequency (:class:`Tracking`, None when not stable)."""
+    at the grid frequency (:class:`Tracking`, None when not stable);
+    grid_voltage_admittance_S: the output admittance Yo = -i2/vg at the
+    grid frequency [S] (:func:`loopcheck.admittance.design_admittance`): the
+    grid current a grid-voltage component at the fundamental drives through
+    the closed loop (rejection of the grid voltage; None when not stable)."""
 
     bandwidth_hz: float | None
     poles: tuple[ClosedLoopPole, ...]
     tracking: Tracking | None = None
+    grid_voltage_admittance_S: complex | None = None
 
     def to_dict(self) -> dict:
+        y = self.grid_voltage_admittance_S
         return {"bandwidth_hz": self.bandwidth_hz, "dominant_poles": [p.to_dict() for p in self.poles],
-                "tracking_at_grid_frequency": None if self.tracking is None else self.tracking.to_dict()}
+                "tracking_at_grid_frequency": None if self.tracking is None else self.tracking.to_dict(),
+                "grid_voltage_admittance_at_grid_frequency_S": None if y is None else [y.real, y.imag]}
 
 
 def characterise(design, analysis, loop=None, count: int = 4) -> ClosedLoopSummary:
@@ -172,4 +179,7 @@ def characterise(design, analysis, loop=None, count: int = 4) -> ClosedLoopSumma
         loop = loop if loop is not None else build_loop(design)
         bw = tracking_bandwidth_hz(loop, fs)
         tr = tracking_at(loop, fs, design.grid.f_hz)
-    return ClosedLoopSummary(bw, poles, tr)
+        from .admittance import design_admittance
+
+        yg = complex(design_admittance(design, np.array([design.grid.f_hz]))[0])
+    return ClosedLoopSummary(bw, poles, tr, yg if analysis.stable else None)

@@ -163,6 +163,12 @@ def format_summary(case, analysis, range_verdict=None, closed_loop=None) -> str:
                 f"tracking at {q(tr.frequency_hz, 'Hz')}: |i/i_ref| = {tr.gain:.5f}, phase {tr.phase_deg:+.3f} deg, "
                 f"error {100 * tr.error:.3g} % of the reference amplitude"
             )
+        yg = closed_loop.grid_voltage_admittance_S
+        if yg is not None:
+            cl_lines.append(
+                f"grid-voltage rejection at {q(design.grid.f_hz, 'Hz')}: |i2/vg| = {q(abs(yg), 'S')} "
+                f"(each volt of grid voltage there drives {q(abs(yg), 'A')} of grid current)"
+            )
         for p in closed_loop.poles:
             osc = f"{q(p.damped_frequency_hz, 'Hz')}" if p.damped_frequency_hz > 0 else "real"
             cl_lines.append(

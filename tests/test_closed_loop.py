@@ -69,3 +69,24 @@ def test_check_prints_closed_loop_and_writes_standalone_figures(tmp_path):
     assert rec["closed_loop"]["bandwidth_hz"] > 0 and rec["closed_loop"]["dominant_poles"]
     r = CliRunner().invoke(app, ["check", case, case, "-o", str(tmp_path / "x.png")], env=ENV)
     assert r.exit_code == 2 and len(r.stderr.strip().splitlines()) == 1 and not (tmp_path / "x.png").exists()
+
+
+def test_grid_voltage_rejection_at_the_fundamental():
+    # Internal-model principle (common practice; Francis & Wonham,
+    # "The internal model principle of control theory", Automatica 12(5),
+    # 1976, from memory): an ideal resonator at the grid frequency on the grid
+    # current rejects a grid-voltage component there completely, so the
+    # closed-loop output admittance |i2/vg| at f1 is (numerically) zero; a
+    # damped resonator or converter-side feedback leaves a finite admittance.
+    ideal = read_case(str(CASES / "commercial-30kva-weak-grid.toml")).design
+    cl = characterise(ideal, analyse(ideal))
+    assert abs(cl.grid_voltage_admittance_S) < 1e-4
+    y0 = 1.0 / abs(2j * math.pi * ideal.grid.f_hz * (ideal.filter.L1_H + ideal.filter.L2_H + ideal.grid.Lg_H))
+    assert abs(cl.grid_voltage_admittance_S) < 1e-4 * y0  # versus the bare filter's admittance at f1
+    damped = read_case(str(CASES / "central-250kva-converter-side.toml")).design
+    cl = characterise(damped, analyse(damped))
+    assert abs(cl.grid_voltage_admittance_S) > 1e-3
+    rec = json.loads(CliRunner().invoke(app, ["check", str(CASES / "central-250kva-converter-side.toml"), "--json"],
+                                        env=ENV).stdout)
+    re_, im_ = rec["closed_loop"]["grid_voltage_admittance_at_grid_frequency_S"]
+    assert complex(re_, im_) == pytest.approx(cl.grid_voltage_admittance_S, rel=1e-12)

@@ -63,3 +63,19 @@ def test_harmonics_command_gives_no_limit_verdict_for_an_unstable_loop():
     out = CliRunner().invoke(app, ["harmonics", str(CASE)], env=ENV).stdout
     worst = next(ln for ln in out.splitlines() if ln.strip().startswith("worst sideband:"))
     assert "within the limits" not in worst and "no verdict" in worst
+
+
+def test_impedance_section_carries_the_impedance_command_verdicts():
+    # the report's impedance section says what `loopcheck impedance` prints;
+    # the eigenvalue verdict of the PFC demo is checked independently in
+    # tests/test_range_verdict.py (python-control model with the bank's states)
+    from loopcheck.report import build_report
+
+    pfc = Path(__file__).resolve().parent.parent / "cases" / "commercial-30kva-pfc-capacitor.toml"
+    doc = build_report(read_case(str(pfc))).html
+    sec = " ".join(_section(doc, "impedance").split())
+    out = CliRunner().invoke(app, ["impedance", str(pfc)], env=ENV).stdout
+    for key in ("impedance-ratio verdict", "eigenvalue verdict", "not passive"):
+        line = " ".join(next(ln for ln in out.splitlines() if key in ln).split())
+        assert line in sec, key
+    assert "unstable, spectral radius" in sec
