@@ -16,6 +16,9 @@ from __future__ import annotations
 
 from typing import Annotated, Optional
 
+import contextlib
+import errno
+import os
 import signal
 import sys
 import threading
@@ -104,8 +107,14 @@ class LoopcheckGroup(TyperGroup):
             except typer.Abort:
                 typer.echo("error: aborted", err=True)
                 code = 1
+            except OSError as exc:
+                code = _write_error(exc)
             else:
                 code = rv if isinstance(rv, int) else 0
+                try:  # results still in the buffer of a redirected stdout fail here, not at exit
+                    sys.stdout.flush()
+                except OSError as exc:
+                    code = _write_error(exc)
             commit = code in (cli_common.EXIT_OK, cli_common.EXIT_UNSTABLE)
         finally:
             _Signals.armed = False
@@ -119,7 +128,7 @@ class LoopcheckGroup(TyperGroup):
             except BrokenPipeError:  # the reader of a pipe went away: nothing more to say
                 code = 1
             except OSError as exc:
-                typer.echo(f"error: cannot write an output: {cli_common.one_line(str(exc))}", err=True)
+                typer.echo(f"error: cannot write an output: {cli_common.one_line(exc.strerror or str(exc))}", err=True)
                 code = cli_common.EXIT_BAD_INPUT
             finally:
                 caught.__exit__(None, None, None)
@@ -128,6 +137,27 @@ class LoopcheckGroup(TyperGroup):
         if standalone_mode:
             sys.exit(code)
         return code
+
+
+#: errors of a full or read-only disk: bad environment, not a bug
+_WRITE_ERRNOS = {errno.ENOSPC, errno.EDQUOT, errno.EFBIG, errno.EROFS, errno.EIO}
+
+
+def _write_error(exc: OSError) -> int:
+    """A full disk (or quota, read-only file system, I/O error) while writing
+    the results, typically a redirected stdout: one line, exit 2; anything
+    else is a bug and keeps its traceback. What is still buffered for stdout
+    is discarded (fd 1 points to /dev/null), so Python's final flush does not
+    fail a second time."""
+    if exc.errno not in _WRITE_ERRNOS:
+        raise exc
+    where = exc.filename if exc.filename else "the results to stdout"
+    typer.echo(f"error: cannot write {where}: {exc.strerror or exc}", err=True)
+    with contextlib.suppress(OSError, ValueError, AttributeError):
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+        os.close(null)
+    return cli_common.EXIT_BAD_INPUT
 
 
 def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:
