@@ -153,6 +153,8 @@ def _write_error(exc: OSError) -> int:
         raise exc
     where = exc.filename if exc.filename else "the results to stdout"
     typer.echo(f"error: cannot write {where}: {exc.strerror or exc}", err=True)
+    if exc.filename:
+        return cli_common.EXIT_BAD_INPUT
     with contextlib.suppress(OSError, ValueError, AttributeError):
         null = os.open(os.devnull, os.O_WRONLY)
         os.dup2(null, sys.stdout.fileno())
