@@ -136,11 +136,13 @@ def _fail(where_: str, key: str, detail: str) -> CaseError:
 
 def _did_you_mean(name: str, allowed: Iterable[str]) -> str:
     allowed = list(allowed)
+    # another capitalisation or swapped letters ("l1", "1L" for L1) first:
+    # difflib scores "1L" as close to "R1" as to "L1"
+    for same in (lambda a: a.lower() == name.lower(), lambda a: sorted(a.lower()) == sorted(name.lower())):
+        hits = [a for a in allowed if same(a)]
+        if hits:
+            return hits[0]
     close = difflib.get_close_matches(name, allowed, n=1, cutoff=0.5)
-    if not close:
-        lower = {a.lower(): a for a in allowed}
-        if name.lower() in lower:
-            close = [lower[name.lower()]]
     return close[0] if close else ""
 
 

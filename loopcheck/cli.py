@@ -16,6 +16,9 @@ from __future__ import annotations
 
 from typing import Annotated, Optional
 
+import contextlib
+import errno
+import os
 import signal
 import sys
 import threading
@@ -30,12 +33,26 @@ from loopcheck import cli_common
 
 
 class _Terminated(SystemExit):
-    """SIGTERM, raised in the main thread so that ``finally`` blocks and the
-    atomic writes clean up their temporary files (exit status 143)."""
+    """SIGINT or SIGTERM, raised in the main thread so that ``finally`` blocks
+    and the atomic writes clean up their temporary files (exit status 128 +
+    the signal number: 130 for Ctrl-C, 143 for SIGTERM; common practice)."""
 
 
-def _on_sigterm(signum, frame):  # pragma: no cover - exercised in a subprocess test
-    raise _Terminated(128 + signal.SIGTERM)
+class _Signals:
+    """The signals received during a run. They are recorded as well as
+    raised, because an exception raised by a signal handler can be swallowed
+    (for instance inside a weakref callback during an import, which Python
+    reports as "Exception ignored" and continues): a run that received one
+    never commits its outputs and exits 128 + the signal number."""
+
+    received: list[int] = []
+    armed = False  # raise only while the command runs, not while ending the session
+
+
+def _on_signal(signum, frame):  # pragma: no cover - exercised in subprocess tests
+    _Signals.received.append(signum)
+    if _Signals.armed:
+        raise _Terminated(128 + signum)
 
 
 class LoopcheckGroup(TyperGroup):
@@ -47,7 +64,8 @@ class LoopcheckGroup(TyperGroup):
     - one run is one output session (see :mod:`loopcheck.cli_common`): the
       output files appear together when the command ends with exit 0 or 4,
       and none when it fails, is interrupted or terminated;
-    - SIGTERM ends the run like Ctrl-C: temporary files are removed.
+    - SIGINT (Ctrl-C) and SIGTERM end the run: temporary files are removed,
+      no output is committed, one line on stderr, exit 130 or 143.
     """
 
     def get_command(self, ctx, cmd_name):
@@ -65,13 +83,15 @@ class LoopcheckGroup(TyperGroup):
 
     def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
         on_main = threading.current_thread() is threading.main_thread()
-        previous = signal.signal(signal.SIGTERM, _on_sigterm) if on_main else None
+        _Signals.received = []
+        previous = {s: signal.signal(s, _on_signal) for s in (signal.SIGINT, signal.SIGTERM)} if on_main else {}
         cli_common.begin_session()
         commit = False
         caught = warnings.catch_warnings()
         caught.__enter__()
         warnings.showwarning = _one_line_warning
         try:
+            _Signals.armed = on_main
             try:
                 rv = super().main(args=args, prog_name=prog_name, complete_var=complete_var,
                                   standalone_mode=False, **extra)
@@ -87,24 +107,59 @@ class LoopcheckGroup(TyperGroup):
             except typer.Abort:
                 typer.echo("error: aborted", err=True)
                 code = 1
+            except OSError as exc:
+                code = _write_error(exc)
             else:
                 code = rv if isinstance(rv, int) else 0
+                try:  # results still in the buffer of a redirected stdout fail here, not at exit
+                    sys.stdout.flush()
+                except OSError as exc:
+                    code = _write_error(exc)
             commit = code in (cli_common.EXIT_OK, cli_common.EXIT_UNSTABLE)
         finally:
+            _Signals.armed = False
+            if _Signals.received:  # also when the raised exception was swallowed on the way
+                commit = False
+                code = 128 + _Signals.received[0]
+                typer.echo(f"error: {signal.Signals(code - 128).name} received: no output of this run was written",
+                           err=True)
             try:
                 cli_common.end_session(commit)
             except BrokenPipeError:  # the reader of a pipe went away: nothing more to say
                 code = 1
             except OSError as exc:
-                typer.echo(f"error: cannot write an output: {cli_common.one_line(str(exc))}", err=True)
+                typer.echo(f"error: cannot write an output: {cli_common.one_line(exc.strerror or str(exc))}", err=True)
                 code = cli_common.EXIT_BAD_INPUT
             finally:
                 caught.__exit__(None, None, None)
-                if on_main:
-                    signal.signal(signal.SIGTERM, previous if previous is not None else signal.SIG_DFL)
+                for s, handler in previous.items():
+                    signal.signal(s, handler if handler is not None else signal.SIG_DFL)
         if standalone_mode:
             sys.exit(code)
         return code
+
+
+#: errors of a full or read-only disk: bad environment, not a bug
+_WRITE_ERRNOS = {errno.ENOSPC, errno.EDQUOT, errno.EFBIG, errno.EROFS, errno.EIO}
+
+
+def _write_error(exc: OSError) -> int:
+    """A full disk (or quota, read-only file system, I/O error) while writing
+    the results, typically a redirected stdout: one line, exit 2; anything
+    else is a bug and keeps its traceback. What is still buffered for stdout
+    is discarded (fd 1 points to /dev/null), so Python's final flush does not
+    fail a second time."""
+    if exc.errno not in _WRITE_ERRNOS:
+        raise exc
+    where = exc.filename if exc.filename else "the results to stdout"
+    typer.echo(f"error: cannot write {where}: {exc.strerror or exc}", err=True)
+    if exc.filename:
+        return cli_common.EXIT_BAD_INPUT
+    with contextlib.suppress(OSError, ValueError, AttributeError):
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+        os.close(null)
+    return cli_common.EXIT_BAD_INPUT
 
 
 def _one_line_warning(message, category, filename, lineno, file=None, line=None) -> None:

@@ -159,11 +159,20 @@ def end_session(commit: bool) -> None:
     if session is None:
         return
     pending = session.pending
+    # the direct writes (a FIFO, /dev/stdout, a device) first: they can fail
+    # (a full disk behind a redirection, a closed pipe) and a rename rarely
+    # does, so a failing one leaves every regular output as it was
+    pending.sort(key=lambda p: not p[2])
     try:
         if commit:
             while pending:
                 tmp, target, direct = pending[0]
-                _finish(tmp, target, direct)
+                try:
+                    _finish(tmp, target, direct)
+                except OSError as exc:  # name the file: "/dev/full: No space left on device"
+                    if isinstance(exc, BrokenPipeError):
+                        raise
+                    raise OSError(exc.errno, f"{target}: {exc.strerror or exc}") from exc
                 pending.pop(0)
     finally:
         for tmp, _target, _direct in pending:
