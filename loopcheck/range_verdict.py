@@ -74,6 +74,7 @@ class RangeVerdict:
             "network_verdict": self.network_verdict,
             "network": self.network_text or None,
             "headline": headline(self),
+            "note": "null: not declared by the case (no Lg range, no grid network or feedforward)",
         }
 
 
