@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from loopcheck.model import (
+    MAX_DELAY_SAMPLES,
     CONTROLLER_KINDS,
     FEEDBACK_KINDS,
     INTEGRATOR_METHODS,
@@ -630,9 +631,9 @@ def _read_sampling(t: dict, w: str, warnings: list[str]) -> Sampling:
         try:
             delay, _unit = parse_quantity_unit(value, "ratio")
         except UnitError:
-            raise _fail(w, "delay", f"expected the computation delay in sampling periods, a number from 0 to 1, got {shown(value)}") from None
-        if not 0.0 <= delay <= 1.0:
-            raise _fail(w, "delay", f"must lie between 0 and 1 sampling periods, got {shown(value)}")
+            raise _fail(w, "delay", f"expected the total loop delay in sampling periods, a number from 0 to {MAX_DELAY_SAMPLES:g}, got {shown(value)}") from None
+        if not 0.0 <= delay <= MAX_DELAY_SAMPLES:
+            raise _fail(w, "delay", f"must lie between 0 and {MAX_DELAY_SAMPLES:g} sampling periods, got {shown(value)}")
     else:
         delay = 1.0
     return Sampling(fs_hz=fs, delay=delay)

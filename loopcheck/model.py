@@ -81,11 +81,16 @@ class Grid:
     V_V: float | None = None
 
 
+#: Largest total loop delay the sampled model accepts [sampling periods].
+MAX_DELAY_SAMPLES = 4.0
+
+
 @dataclass(frozen=True)
 class Sampling:
-    """Sampling (= control update) frequency ``fs_hz`` [Hz] and the
-    computation delay ``delay`` in sampling periods (0..1). The modulator's
-    zero-order hold is always part of the model."""
+    """Sampling (= control update) frequency ``fs_hz`` [Hz] and the total
+    loop delay ``delay`` in sampling periods (0..MAX_DELAY_SAMPLES, whole
+    plus fractional samples: computation delay plus sensor delays). The
+    modulator's zero-order hold is always part of the model."""
 
     fs_hz: float
     delay: float = 1.0
@@ -97,8 +102,17 @@ class Sampling:
 
     @property
     def critical_hz(self) -> float:
-        """Critical frequency fs/(4*delay + 2) [Hz] where capacitor-current
-        feedback changes from damping to anti-damping (fs/6 for one sample)."""
+        """Critical frequency fs/(4*delay + 2) [Hz] where measured
+        capacitor-current feedback changes from damping to anti-damping
+        (fs/6 for one sample, fs/10 for two), for any delay.
+
+        References
+        ----------
+        .. [1] D. Pan, X. Ruan, C. Bao, W. Li and X. Wang, "Capacitor-current-
+           feedback active damping with reduced computation delay for improving
+           robustness of LCL-type grid-connected inverter", IEEE Trans. Power
+           Electron., vol. 29, no. 7, pp. 3414-3427, 2014 (from memory).
+        """
         return self.fs_hz / (4.0 * self.delay + 2.0)
 
 
@@ -173,9 +187,10 @@ def design_resonance_hz(design: Design, with_grid: bool = True) -> float:
 def loop_state_count(design: Design) -> int:
     """Rough number of states of the sampled loop of ``design`` (for work
     estimates): filter (3, plus 1 or 2 for split passive damping),
-    computation delay (1), controller (1 for an integrator, 2 per
+    delay states (one per started sample of delay), controller (1 for an integrator, 2 per
     resonator)."""
-    n = 3 + {"split-RC": 1, "split-RLC": 2}.get(design.filter.damping.kind, 0) + 1
+    n = 3 + {"split-RC": 1, "split-RLC": 2}.get(design.filter.damping.kind, 0)
+    n += max(1, math.ceil(design.sampling.delay - 1e-12))
     c = design.control
     if c.kind == "PI":
         n += 1

@@ -746,9 +746,11 @@ def build_waveforms(ctx: ReportContext) -> Section:
 
     from loopcheck.scenario import parse_scenario
     from loopcheck.sim_plot import waveform_figure
-    from loopcheck.simulate import resonance_rate_check, simulate
+    from loopcheck.simulate import resonance_rate_check, simulate, simulation_unsupported
 
     case, d = ctx.case, ctx.design
+    if (why := simulation_unsupported(d)) is not None:
+        return Section("waveforms", title, f"<p>Not simulated: {e(why)}</p>", False)
     tables = getattr(case, "tables", {}) or {}
     sc = parse_scenario(tables.get("scenario"), case.where("scenario"))
     pwm_sim = None

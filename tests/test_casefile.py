@@ -221,8 +221,8 @@ ERRORS = [
     ({"grid__Lg": '"-1 mH"'}, ["[grid] Lg: must not be negative"]),
     ({"sampling__fs": '"0 Hz"'}, ["[sampling] fs: must be greater than zero"]),
     ({"control__Kp": '"0 V/A"'}, ["[control] Kp: must be greater than zero"]),
-    ({"sampling__delay": "1.5"}, ["[sampling] delay: must lie between 0 and 1"]),
-    ({"sampling__delay": "-0.1"}, ["[sampling] delay: must lie between 0 and 1"]),
+    ({"sampling__delay": "4.5"}, ["[sampling] delay: must lie between 0 and 4"]),
+    ({"sampling__delay": "-0.1"}, ["[sampling] delay: must lie between 0 and 4"]),
     ({"sampling__delay": '"one"'}, ["[sampling] delay: expected the computation delay"]),
     ({"control__feedback": '"grid-side"'}, ['[control] feedback: expected one of "grid", "converter"', 'did you mean "grid"']),
     ({"control__kind": '"PID"'}, ['[control] kind: expected one of "P", "PI", "PR"']),
@@ -377,7 +377,7 @@ def test_docs_example_parses_and_error_examples_match():
         3: variant(filter__C='"10 mH"'),
         4: variant(filter__L1='"abc"'),
         5: variant(filter__C='"0 uF"'),
-        6: variant(sampling__delay="1.5"),
+        6: variant(sampling__delay="4.5"),
         7: variant(control__feedback='"grid-side"'),
     }
     for index, text in produced.items():
