@@ -107,6 +107,7 @@ from typing import Callable
 import numpy as np
 
 from .controller import controller_blocks, parallel
+from .damping_filter import with_damping_filter
 from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
@@ -390,7 +391,7 @@ def _plants(design: Design, prm: dict) -> _Plants:
         d.kind, d.Rd_ohm, prm["Cd"], d.Ld_H,
     )
     Ts = 1.0 / prm["fs"]
-    dp = discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay)
+    dp = with_damping_filter(discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay), design.control, Ts)
     Ad, Bd, Cd = dp.A, dp.B, dp.C
     row = OUTPUT_I2 if design.control.feedback == "grid" else OUTPUT_I1
     return _Plants(Ad, Bd, Cd[..., row : row + 1, :], Cd[..., OUTPUT_IC : OUTPUT_IC + 1, :], Ts)

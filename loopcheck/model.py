@@ -116,6 +116,36 @@ class Sampling:
         return self.fs_hz / (4.0 * self.delay + 2.0)
 
 
+#: Presets of the damping path's discrete filter H(z) ([control] damping_filter).
+DAMPING_FILTERS = ("measured", "backward-euler", "tustin", "lead", "high-pass", "coefficients")
+#: Signals a damping filter can take: the measured capacitor current, or the
+#: sampled capacitor voltage scaled by C/Ts (a derivative estimate of ic).
+DAMPING_SIGNALS = ("ic", "vc")
+
+
+@dataclass(frozen=True)
+class DampingFilter:
+    """The damping path as a discrete filter: ``y = H(z) s`` and
+    ``u = uc - Hi * y`` (Hi stays the scalar gain in front of the filter).
+
+    kind: one of DAMPING_FILTERS; b, a: the coefficients of
+    H(z) = (b0 + b1 z^-1 + ...)/(a0 + a1 z^-1 + ...) for "coefficients";
+    signal: "ic" (measured capacitor current [A]) or "vc" (sampled
+    capacitor voltage times C_F/Ts [A], so b = (1, -1) is the backward-Euler
+    estimate C (vc[k] - vc[k-1])/Ts); C_F: the capacitance the firmware uses
+    in that estimate [F] (the nominal filter C, kept when the hardware
+    varies); lead_samples: prediction horizon of "lead" [sampling periods];
+    cutoff_hz: corner of "high-pass" [Hz]. See :mod:`loopcheck.damping_filter`."""
+
+    kind: str = "measured"
+    b: tuple[float, ...] = (1.0,)
+    a: tuple[float, ...] = (1.0,)
+    signal: str = "ic"
+    C_F: float = 0.0
+    lead_samples: float = 0.5
+    cutoff_hz: float = 0.0
+
+
 @dataclass(frozen=True)
 class Control:
     """Current controller and the capacitor-current damping gain.
@@ -128,7 +158,9 @@ class Control:
     harmonics: extra resonators at h times the fundamental, same Kr and wc;
     integrator / resonator: discretisation methods;
     Hi_V_per_A: capacitor-current feedback gain [V/A] (virtual resistor),
-    subtracted from the controller output.
+    subtracted from the controller output;
+    damping_filter: the damping path's discrete filter H(z) in front of Hi,
+    None for the measured capacitor current (H = 1).
     """
 
     feedback: str = "grid"
@@ -141,6 +173,7 @@ class Control:
     integrator: str = "forward-euler"
     resonator: str = "tustin-prewarp"
     Hi_V_per_A: float = 0.0
+    damping_filter: DampingFilter | None = None
 
 
 @dataclass(frozen=True)

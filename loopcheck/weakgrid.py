@@ -66,6 +66,7 @@ from typing import Callable
 import numpy as np
 
 from loopcheck.controller import controller_blocks, parallel
+from loopcheck.damping_filter import with_damping_filter
 from loopcheck.discretize import discretize_plant
 from loopcheck.loop import OUTPUT_I1, OUTPUT_I2, close_damping_loop, series_open_loop
 from loopcheck.margins import POLE_AT_POINT_TOL
@@ -248,7 +249,8 @@ def _discrete_plants(design: Design, values: ComponentValues, Lg_H):
     Lg = np.asarray(Lg_H, dtype=float)
     p = lcl_state_space(values.L1_H, values.C_F, values.L2_H + Lg, values.R1_ohm, values.R2_ohm + g.Rg_ohm,
                         kind, values.Rd_ohm, values.Cd_F, values.Ld_H)
-    return discretize_plant(p.A, p.B, p.C, design.sampling.Ts_s, design.sampling.delay)
+    Ts = design.sampling.Ts_s
+    return with_damping_filter(discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay), design.control, Ts)
 
 
 @dataclass(frozen=True)
