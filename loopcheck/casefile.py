@@ -682,7 +682,7 @@ def _read_damping_filter(t: dict, w: str, sampling: Sampling, C_F: float) -> Dam
             raise _fail(w, key, "b: all zero, the damping path would carry nothing (set Hi = 0 instead)")
         kind = "coefficients"
     elif isinstance(value, str):
-        kind = read_choice(t, key, DAMPING_FILTERS[:-1], w)
+        kind = read_choice(t, key, DAMPING_FILTERS[:-1], w, "measured")
         b, a, signal = (1.0,), (1.0,), ("vc" if kind in ("backward-euler", "tustin") else "ic")
     else:
         raise _fail(w, key, f"expected a preset name ({', '.join(DAMPING_FILTERS[:-1])}) or a table "
