@@ -53,16 +53,11 @@ import numpy as np
 
 from .discretize import DiscretePlant
 from .model import Design, DampingFilter
+from .damping_text import critical_formula, describe, is_filtered  # noqa: F401  (re-exported)
 from .plant import OUTPUT_IC
 
 #: Plant state that holds the capacitor voltage (loopcheck.plant layout).
 VC_STATE = 1
-
-
-def is_filtered(control) -> bool:
-    """True when the damping path is more than the measured ic (H != 1 on ic)."""
-    f = getattr(control, "damping_filter", None)
-    return f is not None and f.kind != "measured"
 
 
 def coefficients(filt: DampingFilter, Ts_s) -> tuple[np.ndarray, np.ndarray]:
@@ -215,19 +210,10 @@ def critical_frequency_hz(design: Design, points: int = 4000) -> float | None:
     return float(root / (2.0 * math.pi * Ts))
 
 
-def describe(filt: DampingFilter | None) -> str:
-    """One line on the damping path, for summaries and exports."""
-    if filt is None or filt.kind == "measured":
-        return "measured capacitor current ic"
-    sig = "C vc/Ts (vc sampled)" if filt.signal == "vc" else "measured ic"
-    if filt.kind == "backward-euler":
-        return "ic estimated from vc, backward Euler: C (vc[k] - vc[k-1])/Ts"
-    if filt.kind == "tustin":
-        return "ic estimated from vc, Tustin derivative: 2C (vc[k] - vc[k-1])/Ts - y[k-1]"
-    if filt.kind == "lead":
-        g = filt.lead_samples
-        return f"lead (linear prediction {g:g} sample ahead): {1 + g:g} ic[k] - {g:g} ic[k-1]"
-    if filt.kind == "high-pass":
-        return f"first-order high-pass on ic, corner {filt.cutoff_hz:g} Hz (Tustin)"
-    return f"H(z) = b/a on {sig}, b = {list(filt.b)}, a = {list(filt.a)}"
+def damping_critical_hz(design: Design) -> float:
+    """The critical frequency of the design's damping path [Hz]:
+    fs/(4 delay + 2) for the measured ic (closed form), else
+    :func:`critical_frequency_hz`; fs/2 when the path damps up to fs/2."""
+    fc = critical_frequency_hz(design)
+    return design.sampling.fs_hz / 2.0 if fc is None else fc
 

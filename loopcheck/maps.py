@@ -107,7 +107,7 @@ from typing import Callable
 import numpy as np
 
 from .controller import controller_blocks, parallel
-from .damping_filter import with_damping_filter
+from .damping_filter import damping_critical_hz, with_damping_filter
 from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
@@ -221,7 +221,8 @@ class StabilityMap:
     drawn range; ends may be infinite), or None; design_line: the
     :class:`loopcheck.design_line.DesignLine` with every stable interval
     of that line and, for a design that is not stable, the nearest ones.
-    critical_ratio: 1/(4*delay + 2), the critical fr/fs [-]; delay
+    critical_ratio: the critical fr/fs [-], 1/(4*delay + 2) for the measured
+    ic (loopcheck.damping_filter.damping_critical_hz with a filter); delay
     [sampling periods]; fs_hz, L1_H: the case's own sampling frequency [Hz]
     and converter-side inductance [H]; Lg_H: nominal grid inductance [H]; Lg_range_H:
     the case's grid-inductance range [H] or None; tolerance: the band
@@ -1254,7 +1255,7 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
         design_stable=d_stable,
         design_interval=d_interval,
         design_line=d_line,
-        critical_ratio=1.0 / (4.0 * s.delay + 2.0),
+        critical_ratio=damping_critical_hz(design) / s.fs_hz,
         delay=s.delay,
         fs_hz=s.fs_hz,
         L1_H=design.filter.L1_H,

@@ -50,7 +50,8 @@ def sampled_plant_long(A, B, Cm, Ts, delay):
     the first d Ts; the N whole samples as z^-1 blocks in series."""
     N = int(math.floor(delay + 1e-12))
     d = delay - N
-    sysc = ct.ss(A, B, Cm, np.zeros((3, 1)))
+    p = Cm.shape[0]
+    sysc = ct.ss(A, B, Cm, np.zeros((p, 1)))
     n = A.shape[0]
     if d < 1e-12:
         base = ct.sample_system(sysc, Ts, method="zoh")
@@ -63,7 +64,7 @@ def sampled_plant_long(A, B, Cm, Ts, delay):
         Bd = np.zeros((n + 1, 1))
         Bd[:n] = second.B
         Bd[n, 0] = 1.0
-        base = ct.ss(Ad, Bd, np.hstack([Cm, np.zeros((3, 1))]), np.zeros((3, 1)), Ts)
+        base = ct.ss(Ad, Bd, np.hstack([Cm, np.zeros((p, 1))]), np.zeros((p, 1)), Ts)
     zinv = ct.ss(ct.tf([1.0], [1.0, 0.0], Ts))
     for _ in range(N):
         base = ct.series(zinv, base)
