@@ -107,7 +107,7 @@ from typing import Callable
 import numpy as np
 
 from .controller import controller_blocks, parallel
-from .damping_filter import damping_critical_hz, with_damping_filter
+from .damping_filter import damping_critical_hz, is_filtered, with_damping_filter
 from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
@@ -259,6 +259,7 @@ class StabilityMap:
     design_line: object | None = None
     boundary_path: tuple = ()
     kernels: str = ""
+    critical_formula: str = "1/(4 delay + 2)"
 
     def to_dict(self) -> dict:
         """Plain dict of every field (arrays as nested lists; None for non-finite numbers)."""
@@ -1256,6 +1257,8 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
         design_interval=d_interval,
         design_line=d_line,
         critical_ratio=damping_critical_hz(design) / s.fs_hz,
+        critical_formula=("1/(4 delay + 2)" if not is_filtered(design.control)
+                          else f"numeric ({design.control.damping_filter.kind} damping filter)"),
         delay=s.delay,
         fs_hz=s.fs_hz,
         L1_H=design.filter.L1_H,

@@ -348,7 +348,7 @@ def simulation_unsupported(design: Design) -> str | None:
     filt = getattr(design.control, "damping_filter", None)
     if filt is not None and filt.kind != "measured":
         return (f"[control] damping_filter: the simulation handles only the measured capacitor current, "
-                f"got {filt.kind!r} (check, map, grid, pick and export model it exactly)")
+                f"got {filt.kind!r} (check, map, grid and pick model it exactly)")
     return None
 
 
