@@ -272,3 +272,39 @@ def test_presets_read_from_the_case_file():
     assert c.damping_filter.C_F == pytest.approx(10e-6)
     c = case_from_string(CASE.format(extra='damping_filter = "measured"'), "x.toml").design.control
     assert c.damping_filter is None
+
+
+# --- the demo cases through the commands (one-line refusals where a part cannot model them)
+
+from pathlib import Path  # noqa: E402
+
+from typer.testing import CliRunner  # noqa: E402
+
+from loopcheck.cli import app  # noqa: E402
+
+CASES = Path(__file__).resolve().parent.parent / "cases"
+ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
+
+
+@pytest.mark.parametrize("name, refuses", [
+    ("aa-filter-15-sample-delay.toml", {"simulate": "[sampling] delay"}),
+    ("ab-ic-estimated-from-vc.toml", {"simulate": "[control] damping_filter", "export": "[control] damping_filter"}),
+    ("ac-lead-compensated-damping.toml", {"simulate": "[control] damping_filter", "export": "[control] damping_filter"}),
+])
+def test_demo_cases_run_or_refuse_in_one_line(name, refuses, tmp_path):
+    path = str(CASES / name)
+    runner = CliRunner()
+    for cmd in (["grid", path], ["pick", path, "--quiet"], ["export", path, "-o", str(tmp_path / "fw")],
+                ["simulate", path]):
+        r = runner.invoke(app, cmd, env=ENV)
+        if cmd[0] in refuses:
+            assert r.exit_code == 2, (cmd, r.stderr)
+            err = r.stderr.strip()
+            assert "\n" not in err and refuses[cmd[0]] in err and "Traceback" not in r.output, err
+        else:
+            assert r.exit_code in (0, 4), (cmd, r.stderr)
+    # the check command prints the critical frequency of the actual damping path
+    r = runner.invoke(app, ["check", path], env=ENV)
+    assert r.exit_code == 0
+    expect = {"aa": "= 1.25 kHz", "ab": "= 2.5 kHz", "ac": "= 2.432 kHz"}[name[:2]]
+    assert expect in r.stdout
