@@ -7,6 +7,7 @@ import math
 import numpy as np
 
 from . import margins as mg
+from .damping_filter import damping_critical_hz
 from .loop import Loop, build_loop
 from .model import Design, design_resonance_hz
 from .results import Analysis, Crossover, GainMargin, PhaseCrossing, SensitivityPeak
@@ -113,7 +114,7 @@ def analyse_loop(design: Design, loop: Loop, tol: float = TOLERANCE) -> Analysis
     if verdict == "stable" and crossovers:
         pm = min(abs(c.phase_margin_deg) for c in crossovers)
 
-    fc = design.sampling.critical_hz
+    fc = damping_critical_hz(design)
     fr = design_resonance_hz(design, with_grid=True)
     return Analysis(
         name=design.name,

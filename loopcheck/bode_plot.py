@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from loopcheck.analysis import CONTOUR_OFFSET
+from loopcheck.damping_text import is_filtered
 
 __all__ = ["LoopCurve", "OKABE_ITO", "sample_loop", "bode_figure", "critical_label", "figure_png_bytes"]
 
@@ -215,7 +216,7 @@ def bode_figure(design, analysis, loop=None, curve: LoopCurve | None = None, tit
     # resonance, critical frequency, Nyquist frequency
     fr = analysis.resonance_hz
     fc = analysis.critical_hz
-    crit = critical_label(design.sampling.delay)
+    crit = critical_label(design.sampling.delay) if not is_filtered(design.control) else "numeric, damping filter"
     for ax in (ax_m, ax_p):
         # behind the curve (zorder 1.5 < 2): a lightly damped resonance is a spike
         # a few hertz wide that the marker line must not hide

@@ -31,6 +31,10 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from loopcheck.model import (
+    DAMPING_FILTERS,
+    DAMPING_SIGNALS,
+    DampingFilter,
+    MAX_DELAY_SAMPLES,
     CONTROLLER_KINDS,
     FEEDBACK_KINDS,
     INTEGRATOR_METHODS,
@@ -385,7 +389,7 @@ def parse_case(data: dict, path_label: str) -> Case:
     filt = _read_filter(read_table(data, "filter", top), where(path_label, "filter"), warnings)
     grid = _read_grid(read_table(data, "grid", top), where(path_label, "grid"), warnings)
     sampling = _read_sampling(read_table(data, "sampling", top), where(path_label, "sampling"), warnings)
-    control = _read_control(read_table(data, "control", top), where(path_label, "control"), warnings, grid, sampling)
+    control = _read_control(read_table(data, "control", top), where(path_label, "control"), warnings, grid, sampling, filt.C_F)
     if not name:
         name = os.path.splitext(os.path.basename(path_label))[0]
     design = Design(filter=filt, grid=grid, sampling=sampling, control=control, name=name)
@@ -632,15 +636,80 @@ def _read_sampling(t: dict, w: str, warnings: list[str]) -> Sampling:
         try:
             delay, _unit = parse_quantity_unit(value, "ratio")
         except UnitError:
-            raise _fail(w, "delay", f"expected the computation delay in sampling periods, a number from 0 to 1, got {shown(value)}") from None
-        if not 0.0 <= delay <= 1.0:
-            raise _fail(w, "delay", f"must lie between 0 and 1 sampling periods, got {shown(value)}")
+            raise _fail(w, "delay", f"expected the total loop delay in sampling periods, a number from 0 to {MAX_DELAY_SAMPLES:g}, got {shown(value)}") from None
+        if not 0.0 <= delay <= MAX_DELAY_SAMPLES:
+            raise _fail(w, "delay", f"must lie between 0 and {MAX_DELAY_SAMPLES:g} sampling periods, got {shown(value)}")
     else:
         delay = 1.0
     return Sampling(fs_hz=fs, delay=delay)
 
 
-_CONTROL_KEYS = ("feedback", "kind", "Kp", "Ki", "Kr", "wc", "harmonics", "integrator", "resonator", "Hi")
+_CONTROL_KEYS = ("feedback", "kind", "Kp", "Ki", "Kr", "wc", "harmonics", "integrator", "resonator", "Hi",
+                 "damping_filter", "damping_lead", "damping_cutoff")
+#: Longest explicit damping-filter coefficient list (order + 1).
+MAX_FILTER_COEFFICIENTS = 9
+
+
+def _coefficient_list(value, w: str, name: str) -> tuple[float, ...]:
+    key = "damping_filter"
+    if not isinstance(value, list) or not value:
+        raise _fail(w, key, f"{name}: expected a non-empty list of numbers, got {shown(value)}")
+    if len(value) > MAX_FILTER_COEFFICIENTS:
+        raise _fail(w, key, f"{name}: at most {MAX_FILTER_COEFFICIENTS} coefficients, got {len(value)}")
+    out = []
+    for v in value:
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+            raise _fail(w, key, f"{name}: expected finite numbers, got {shown(v)}")
+        out.append(float(v))
+    return tuple(out)
+
+
+def _read_damping_filter(t: dict, w: str, sampling: Sampling, C_F: float) -> DampingFilter | None:
+    """[control] damping_filter (preset name or {b, a, signal}), damping_lead, damping_cutoff."""
+    key = "damping_filter"
+    value = t.get(key, "measured")
+    lead, cutoff = 0.5, 0.0
+    if isinstance(value, dict):
+        check_keys(value, ("b", "a", "signal"), f"{w} {key}:")
+        if "b" not in value:
+            raise _fail(w, key, "b: missing; expected the numerator coefficients in powers of z^-1, e.g. b = [1, -1]")
+        b = _coefficient_list(value["b"], w, "b")
+        a = _coefficient_list(value.get("a", [1.0]), w, "a")
+        signal = value.get("signal", "ic")
+        if signal not in DAMPING_SIGNALS:
+            raise _fail(w, key, f"signal: expected one of \"ic\", \"vc\", got {shown(signal)}")
+        if a[0] == 0.0:
+            raise _fail(w, key, f"a: the first coefficient a0 must not be zero, got {list(a)}")
+        if all(x == 0.0 for x in b):
+            raise _fail(w, key, "b: all zero, the damping path would carry nothing (set Hi = 0 instead)")
+        kind = "coefficients"
+    elif isinstance(value, str):
+        kind = read_choice(t, key, DAMPING_FILTERS[:-1], w, "measured")
+        b, a, signal = (1.0,), (1.0,), ("vc" if kind in ("backward-euler", "tustin") else "ic")
+    else:
+        raise _fail(w, key, f"expected a preset name ({', '.join(DAMPING_FILTERS[:-1])}) or a table "
+                            f"{{b = [...], a = [...], signal = \"ic\"}}, got {shown(value)}")
+    if kind == "lead":
+        lead = read_quantity(t, "damping_lead", "ratio", w, 0.5, minimum=0.0, maximum=2.0)
+    elif "damping_lead" in t:
+        raise _fail(w, "damping_lead", f'only used with damping_filter = "lead", got damping_filter = {shown(value)}')
+    if kind == "high-pass":
+        cutoff = read_quantity(t, "damping_cutoff", "frequency", w, positive=True)
+        if cutoff >= sampling.fs_hz / 2.0:
+            raise _fail(w, "damping_cutoff", f"must lie below fs/2 = {sampling.fs_hz / 2.0:g} Hz, got {shown(t['damping_cutoff'])}")
+    elif "damping_cutoff" in t:
+        raise _fail(w, "damping_cutoff", f'only used with damping_filter = "high-pass", got damping_filter = {shown(value)}')
+    if kind == "measured":
+        return None
+    if kind == "coefficients" and len(a) > 1:
+        import numpy as np
+
+        poles = np.roots(np.array(a))
+        if poles.size and np.max(np.abs(poles)) > 1.0 + 1e-9:
+            worst = poles[int(np.argmax(np.abs(poles)))]
+            raise _fail(w, key, f"a: the filter is unstable, pole at z = {complex(worst):.4g} "
+                                f"(|z| = {abs(worst):.4g} > 1)")
+    return DampingFilter(kind=kind, b=b, a=a, signal=signal, C_F=C_F, lead_samples=lead, cutoff_hz=cutoff)
 
 
 def _read_resonant_gain(t: dict, w: str, wc: float, warnings: list[str]) -> float:
@@ -672,7 +741,7 @@ def _read_resonant_gain(t: dict, w: str, wc: float, warnings: list[str]) -> floa
     return Kr
 
 
-def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sampling) -> Control:
+def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sampling, C_F: float = 0.0) -> Control:
     check_keys(t, _CONTROL_KEYS, w)
     feedback = read_choice(t, "feedback", FEEDBACK_KINDS, w)
     kind = read_choice(t, "kind", CONTROLLER_KINDS, w)
@@ -730,6 +799,7 @@ def _read_control(t: dict, w: str, warnings: list[str], grid: Grid, sampling: Sa
         integrator=integrator,
         resonator=resonator,
         Hi_V_per_A=Hi,
+        damping_filter=_read_damping_filter(t, w, sampling, C_F),
     )
 
 

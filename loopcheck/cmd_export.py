@@ -70,6 +70,10 @@ def export(
     check_output(header, "--header")
     check_output(json_out, "--json-out")
     loaded = load_case(case)
+    from loopcheck.firmware import export_unsupported
+
+    if (why := export_unsupported(loaded.design)) is not None:
+        fail(f"{loaded.path}: {why}")
     print_warnings(loaded)
 
     from loopcheck.casefile import CaseError

@@ -198,7 +198,9 @@ def format_grid(case, res, scr_of, rows_every: int, mc) -> str:
         s_lo, s_hi = scr_of(lo), scr_of(hi)
         rng += f"  (SCR {s_lo:.4g} .. {s_hi:.4g})"
     L.append(rng)
-    L.append(f"critical freq.  {res.critical_hz:.4g} Hz = fs/(4*delay+2), delay {d.sampling.delay:g} sample")
+    from loopcheck.damping_text import critical_formula
+
+    L.append(f"critical freq.  {res.critical_hz:.4g} Hz = {critical_formula(d)}, delay {d.sampling.delay:g} sample")
     if res.Lg_critical_H is None:
         f = d.filter
         fr0 = math.sqrt((f.L1_H + f.L2_H) / (f.L1_H * f.L2_H * f.shunt_capacitance_F)) / (2 * math.pi)

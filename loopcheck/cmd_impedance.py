@@ -56,6 +56,11 @@ def impedance(
     """
     check_figure_output(output, "-o")
     case = load_case(case_file)
+    from loopcheck.damping_text import is_filtered
+
+    if is_filtered(case.design.control):
+        fail(f"{case.path}: [control] damping_filter: the impedance study models the measured capacitor current only, "
+             f"got {case.design.control.damping_filter.kind!r}")
 
     from loopcheck.casefile import CaseError
     from loopcheck.grid_network import read_feedforward, read_grid_network, study

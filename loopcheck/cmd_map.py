@@ -200,7 +200,7 @@ def summary_text(smap, case_path: str, figure, csv_path) -> str:
     lines.extend(design_point_lines(smap))
     crit = smap.critical_ratio
     period = "sampling period" if smap.delay == 1 else "sampling periods"
-    lines.append(f"  critical ratio fr/fs = 1/(4 delay + 2) = {crit:.4g} (delay {smap.delay:g} {period})")
+    lines.append(f"  critical ratio fr/fs = {smap.critical_formula} = {crit:.4g} (delay {smap.delay:g} {period})")
     methods = smap.boundary_method
     n_exact = sum(m == "exact" for m in methods)
     if n_exact == len(methods):

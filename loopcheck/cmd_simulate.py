@@ -123,6 +123,11 @@ def simulate(
     loaded = load_case(case)
     from dataclasses import replace
 
+    from loopcheck.simulate import simulation_unsupported
+
+    if (why := simulation_unsupported(loaded.design)) is not None:
+        fail(f"{loaded.path}: {why}")
+
     from loopcheck.casefile import CaseError
     from loopcheck.scenario import parse_event_option, parse_scenario
     from loopcheck.units import UnitError, parse_quantity

@@ -880,10 +880,25 @@ class FirmwareExport:
         return self.firmware if self.firmware is not None else self.si
 
 
+def export_unsupported(design: Design) -> str | None:
+    """Why the firmware export cannot write ``design`` (one line naming the
+    case key), or None: the exported difference equations hold the plain
+    measured capacitor current, not a damping filter H(z)."""
+    from .damping_text import is_filtered
+
+    if is_filtered(design.control):
+        return (f"[control] damping_filter: the firmware export writes the measured capacitor current only, "
+                f"got {design.control.damping_filter.kind!r}; check, map, grid and pick model the filter exactly")
+    return None
+
+
 def export_controller(design: Design, settings: FirmwareSettings | None = None) -> FirmwareExport:
     """Difference equations, firmware units, quantisation and re-check of a
     design. Raises :class:`FirmwareFormatError` when a coefficient does not
-    fit the chosen format."""
+    fit the chosen format, ValueError for a design it cannot export
+    (:func:`export_unsupported`)."""
+    if (why := export_unsupported(design)) is not None:
+        raise ValueError(why)
     settings = settings or FirmwareSettings()
     si = controller_sections(design)
     sc = settings.scaling

@@ -378,6 +378,11 @@ def read_grid_network(case) -> GridNetwork | None:
         return None
     t = case.tables["grid_network"]
     w = case.where("grid_network")
+    from .damping_text import is_filtered
+
+    if is_filtered(case.design.control):
+        raise CaseError(f"{case.where('control')} damping_filter: a [grid_network] is modelled with the measured "
+                        f"capacitor current only, got {case.design.control.damping_filter.kind!r}")
     check_keys(t, KEYS, w)
     units = t.get("units", 1)
     if isinstance(units, bool) or not isinstance(units, int) or units < 1:

@@ -4,7 +4,9 @@ Signals at sample k (converter voltage u, modulator gain folded in):
 
     e[k]  = i_ref[k] - i_fb[k]                  (i_fb = i2 or i1)
     uc[k] = controller(e)[k]
-    u[k]  = uc[k] - Hi * ic[k]                   (capacitor-current feedback)
+    u[k]  = uc[k] - Hi * y[k]                    (capacitor-current feedback,
+                                                  y = H(z) ic or an estimate of ic
+                                                  from vc, loopcheck.damping_filter)
     applied from k*Ts + delay*Ts by the modulator's zero-order hold
 
 The loop is broken at the current controller with the damping loop closed:
@@ -20,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .controller import DiscreteSS, controller_blocks, controller_response, parallel, solve_at_points
+from .damping_filter import with_damping_filter
 from .discretize import DiscretePlant, discretize_plant
 from .plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, design_plant
 
@@ -79,7 +82,9 @@ def series_open_loop(Ai, Bp, Cfb, ctrl: DiscreteSS):
 
 
 def close_damping_loop(plant: DiscretePlant, Hi):
-    """Plant state matrix with u = uc - Hi*ic[k] closed (Hi [V/A], array ok)."""
+    """Plant state matrix with u = uc - Hi*y[k] closed (Hi [V/A], array ok);
+    y is the plant's ic row: the measured ic, or the damping filter's output
+    when :func:`loopcheck.damping_filter.with_damping_filter` appended it."""
     Hi = np.asarray(Hi, dtype=float)[..., None, None]
     Cic = plant.C[..., OUTPUT_IC : OUTPUT_IC + 1, :]
     return plant.A - Hi * (plant.B @ Cic)
@@ -100,7 +105,7 @@ def loop_from_plant(design, p, Hi_V_per_A=None, Kp_V_per_A=None) -> Loop:
     inside the exact ZOH discretisation. Hi_V_per_A [V/A] and Kp_V_per_A
     [V/A] override the design's values."""
     Ts = design.sampling.Ts_s
-    dplant = discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay)
+    dplant = with_damping_filter(discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay), design.control, Ts)
     Hi = design.control.Hi_V_per_A if Hi_V_per_A is None else Hi_V_per_A
     Ai = close_damping_loop(dplant, Hi)
     row = OUTPUT_I2 if design.control.feedback == "grid" else OUTPUT_I1

@@ -72,7 +72,7 @@ def _ratio_text(r: float) -> str:
 def _add_overlays(ax, smap, fx, fy, legend: list) -> None:
     """Critical ratio, Lg marks and the design point on one panel."""
     crit = smap.critical_ratio
-    text = f"critical fr/fs = 1/(4 delay + 2) = {_ratio_text(crit)} (delay {smap.delay:g} Ts)"
+    text = f"critical fr/fs = {getattr(smap, 'critical_formula', '1/(4 delay + 2)')} = {_ratio_text(crit)} (delay {smap.delay:g} Ts)"
     if smap.x.name == "fr/fs":
         ax.axvline(crit * fx, color=VERMILLION, ls="--", lw=1.6)
         legend.append(Line2D([], [], color=VERMILLION, ls="--", lw=1.6, label=text))

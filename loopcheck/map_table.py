@@ -102,11 +102,13 @@ def _negative_hi_wanted(design, other) -> bool:
     f, g, s, c = design.filter, design.grid, design.sampling, design.control
     if c.Hi_V_per_A < 0:
         return True
-    crit = s.critical_hz
+    from loopcheck.damping_filter import damping_critical_hz
+
+    crit = damping_critical_hz(design)
     lg_low = min(g.Lg_H, g.Lg_range_H[0]) if g.Lg_range_H is not None else g.Lg_H
     if float(resonance_hz(f.L1_H, f.C_F, f.L2_H + lg_low)) > crit:
         return True
-    return other is not None and other.name == "fr/fs" and other.stop > 1.0 / (4.0 * s.delay + 2.0)
+    return other is not None and other.name == "fr/fs" and other.stop > crit / s.fs_hz
 
 
 def default_range(design, name: str, other=None) -> tuple[float, float]:

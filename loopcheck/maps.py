@@ -107,6 +107,7 @@ from typing import Callable
 import numpy as np
 
 from .controller import controller_blocks, parallel
+from .damping_filter import damping_critical_hz, is_filtered, with_damping_filter
 from .discretize import discretize_plant
 from .loop import series_open_loop
 from .model import Design, design_resonance_hz
@@ -220,7 +221,8 @@ class StabilityMap:
     drawn range; ends may be infinite), or None; design_line: the
     :class:`loopcheck.design_line.DesignLine` with every stable interval
     of that line and, for a design that is not stable, the nearest ones.
-    critical_ratio: 1/(4*delay + 2), the critical fr/fs [-]; delay
+    critical_ratio: the critical fr/fs [-], 1/(4*delay + 2) for the measured
+    ic (loopcheck.damping_filter.damping_critical_hz with a filter); delay
     [sampling periods]; fs_hz, L1_H: the case's own sampling frequency [Hz]
     and converter-side inductance [H]; Lg_H: nominal grid inductance [H]; Lg_range_H:
     the case's grid-inductance range [H] or None; tolerance: the band
@@ -257,6 +259,7 @@ class StabilityMap:
     design_line: object | None = None
     boundary_path: tuple = ()
     kernels: str = ""
+    critical_formula: str = "1/(4 delay + 2)"
 
     def to_dict(self) -> dict:
         """Plain dict of every field (arrays as nested lists; None for non-finite numbers)."""
@@ -390,7 +393,7 @@ def _plants(design: Design, prm: dict) -> _Plants:
         d.kind, d.Rd_ohm, prm["Cd"], d.Ld_H,
     )
     Ts = 1.0 / prm["fs"]
-    dp = discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay)
+    dp = with_damping_filter(discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay), design.control, Ts)
     Ad, Bd, Cd = dp.A, dp.B, dp.C
     row = OUTPUT_I2 if design.control.feedback == "grid" else OUTPUT_I1
     return _Plants(Ad, Bd, Cd[..., row : row + 1, :], Cd[..., OUTPUT_IC : OUTPUT_IC + 1, :], Ts)
@@ -1253,7 +1256,9 @@ def compute_map(design: Design, spec: MapSpec, tol: float = TOLERANCE, progress:
         design_stable=d_stable,
         design_interval=d_interval,
         design_line=d_line,
-        critical_ratio=1.0 / (4.0 * s.delay + 2.0),
+        critical_ratio=damping_critical_hz(design) / s.fs_hz,
+        critical_formula=("1/(4 delay + 2)" if not is_filtered(design.control)
+                          else f"numeric ({design.control.damping_filter.kind} damping filter)"),
         delay=s.delay,
         fs_hz=s.fs_hz,
         L1_H=design.filter.L1_H,

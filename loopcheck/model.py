@@ -81,11 +81,16 @@ class Grid:
     V_V: float | None = None
 
 
+#: Largest total loop delay the sampled model accepts [sampling periods].
+MAX_DELAY_SAMPLES = 4.0
+
+
 @dataclass(frozen=True)
 class Sampling:
-    """Sampling (= control update) frequency ``fs_hz`` [Hz] and the
-    computation delay ``delay`` in sampling periods (0..1). The modulator's
-    zero-order hold is always part of the model."""
+    """Sampling (= control update) frequency ``fs_hz`` [Hz] and the total
+    loop delay ``delay`` in sampling periods (0..MAX_DELAY_SAMPLES, whole
+    plus fractional samples: computation delay plus sensor delays). The
+    modulator's zero-order hold is always part of the model."""
 
     fs_hz: float
     delay: float = 1.0
@@ -97,9 +102,48 @@ class Sampling:
 
     @property
     def critical_hz(self) -> float:
-        """Critical frequency fs/(4*delay + 2) [Hz] where capacitor-current
-        feedback changes from damping to anti-damping (fs/6 for one sample)."""
+        """Critical frequency fs/(4*delay + 2) [Hz] where measured
+        capacitor-current feedback changes from damping to anti-damping
+        (fs/6 for one sample, fs/10 for two), for any delay.
+
+        References
+        ----------
+        .. [1] D. Pan, X. Ruan, C. Bao, W. Li and X. Wang, "Capacitor-current-
+           feedback active damping with reduced computation delay for improving
+           robustness of LCL-type grid-connected inverter", IEEE Trans. Power
+           Electron., vol. 29, no. 7, pp. 3414-3427, 2014 (from memory).
+        """
         return self.fs_hz / (4.0 * self.delay + 2.0)
+
+
+#: Presets of the damping path's discrete filter H(z) ([control] damping_filter).
+DAMPING_FILTERS = ("measured", "backward-euler", "tustin", "lead", "high-pass", "coefficients")
+#: Signals a damping filter can take: the measured capacitor current, or the
+#: sampled capacitor voltage scaled by C/Ts (a derivative estimate of ic).
+DAMPING_SIGNALS = ("ic", "vc")
+
+
+@dataclass(frozen=True)
+class DampingFilter:
+    """The damping path as a discrete filter: ``y = H(z) s`` and
+    ``u = uc - Hi * y`` (Hi stays the scalar gain in front of the filter).
+
+    kind: one of DAMPING_FILTERS; b, a: the coefficients of
+    H(z) = (b0 + b1 z^-1 + ...)/(a0 + a1 z^-1 + ...) for "coefficients";
+    signal: "ic" (measured capacitor current [A]) or "vc" (sampled
+    capacitor voltage times C_F/Ts [A], so b = (1, -1) is the backward-Euler
+    estimate C (vc[k] - vc[k-1])/Ts); C_F: the capacitance the firmware uses
+    in that estimate [F] (the nominal filter C, kept when the hardware
+    varies); lead_samples: prediction horizon of "lead" [sampling periods];
+    cutoff_hz: corner of "high-pass" [Hz]. See :mod:`loopcheck.damping_filter`."""
+
+    kind: str = "measured"
+    b: tuple[float, ...] = (1.0,)
+    a: tuple[float, ...] = (1.0,)
+    signal: str = "ic"
+    C_F: float = 0.0
+    lead_samples: float = 0.5
+    cutoff_hz: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -114,7 +158,9 @@ class Control:
     harmonics: extra resonators at h times the fundamental, same Kr and wc;
     integrator / resonator: discretisation methods;
     Hi_V_per_A: capacitor-current feedback gain [V/A] (virtual resistor),
-    subtracted from the controller output.
+    subtracted from the controller output;
+    damping_filter: the damping path's discrete filter H(z) in front of Hi,
+    None for the measured capacitor current (H = 1).
     """
 
     feedback: str = "grid"
@@ -127,6 +173,7 @@ class Control:
     integrator: str = "forward-euler"
     resonator: str = "tustin-prewarp"
     Hi_V_per_A: float = 0.0
+    damping_filter: DampingFilter | None = None
 
 
 @dataclass(frozen=True)
@@ -173,9 +220,10 @@ def design_resonance_hz(design: Design, with_grid: bool = True) -> float:
 def loop_state_count(design: Design) -> int:
     """Rough number of states of the sampled loop of ``design`` (for work
     estimates): filter (3, plus 1 or 2 for split passive damping),
-    computation delay (1), controller (1 for an integrator, 2 per
+    delay states (one per started sample of delay), controller (1 for an integrator, 2 per
     resonator)."""
-    n = 3 + {"split-RC": 1, "split-RLC": 2}.get(design.filter.damping.kind, 0) + 1
+    n = 3 + {"split-RC": 1, "split-RLC": 2}.get(design.filter.damping.kind, 0)
+    n += max(1, math.ceil(design.sampling.delay - 1e-12))
     c = design.control
     if c.kind == "PI":
         n += 1

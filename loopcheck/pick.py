@@ -168,7 +168,8 @@ def default_hi_range(design: Design, spec: ToleranceSpec | None = None) -> tuple
     """Symmetric Hi search range [V/A]: +-1.5 * 2*pi*f_crit * L1_min.
 
     The capacitor-current loop can only damp below the critical frequency
-    f_crit = fs/(4*delay + 2); its largest useful gain is of the order of
+    f_crit = fs/(4*delay + 2) (or that of the damping filter,
+    :func:`loopcheck.damping_filter.damping_critical_hz`); its largest useful gain is of the order of
     L1*(w_crit^2 - w_r^2)/w_crit < w_crit*L1 (continuous-delay
     approximation of the inner-loop bound, derived), and negative gains
     damp resonances above f_crit. L1_min is L1 at its lowest tolerance."""
@@ -177,7 +178,9 @@ def default_hi_range(design: Design, spec: ToleranceSpec | None = None) -> tuple
         for c in spec.components:
             if c.name == "L1":
                 L1 *= 1.0 + c.low
-    h = 1.5 * 2.0 * math.pi * design.sampling.critical_hz * L1
+    from .damping_filter import damping_critical_hz
+
+    h = 1.5 * 2.0 * math.pi * damping_critical_hz(design) * L1
     return (-h, h)
 
 

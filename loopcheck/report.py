@@ -43,6 +43,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from loopcheck import __version__
+from loopcheck.damping_text import critical_formula
 from loopcheck.units import format_quantity as q
 
 __all__ = [
@@ -377,7 +378,7 @@ def build_verdict(ctx: ReportContext) -> Section:
         ["spectral radius max|z| of the closed loop", f"{a.spectral_radius:.6f}", "-"],
         ["LCL resonance with the grid inductance", _num(a.resonance_hz, 5), "Hz"],
         ["LCL resonance without the grid inductance", _num(a.resonance_no_grid_hz, 5), "Hz"],
-        [f"critical frequency fs/(4*delay+2); the resonance lies {side_words} it", _num(a.critical_hz, 5), "Hz"],
+        [f"critical frequency {critical_formula(d)}; the resonance lies {side_words} it", _num(a.critical_hz, 5), "Hz"],
         ["open-loop poles outside the unit circle P", str(a.open_loop_unstable_poles), "-"],
         ["open-loop poles on the unit circle", str(a.open_loop_circle_poles), "-"],
         ["counter-clockwise encirclements of -1 N", str(a.nyquist_encirclements), "-"],
@@ -627,8 +628,10 @@ def _db_or(x: float) -> str:
 def _firmware_html(ctx: ReportContext) -> str:
     """The exported controller: difference-equation coefficients and the re-check."""
     from loopcheck.casefile import CaseError
-    from loopcheck.firmware import FirmwareFormatError, FirmwareSettings, export_controller, read_firmware_settings
+    from loopcheck.firmware import FirmwareFormatError, FirmwareSettings, export_controller, export_unsupported, read_firmware_settings
 
+    if (why := export_unsupported(ctx.design)) is not None:
+        return f"<p>Not exported: {html.escape(why)}</p>"
     case = ctx.case
     settings = FirmwareSettings()
     notes: list[str] = []
@@ -747,9 +750,11 @@ def build_waveforms(ctx: ReportContext) -> Section:
 
     from loopcheck.scenario import parse_scenario
     from loopcheck.sim_plot import waveform_figure
-    from loopcheck.simulate import resonance_rate_check, simulate
+    from loopcheck.simulate import resonance_rate_check, simulate, simulation_unsupported
 
     case, d = ctx.case, ctx.design
+    if (why := simulation_unsupported(d)) is not None:
+        return Section("waveforms", title, f"<p>Not simulated: {e(why)}</p>", False)
     tables = getattr(case, "tables", {}) or {}
     sc = parse_scenario(tables.get("scenario"), case.where("scenario"))
     pwm_sim = None

@@ -338,6 +338,20 @@ def _injection_peak(ev: Event, grid_peak: float) -> float:
     return 0.05 * grid_peak if grid_peak > 0 else 10.0
 
 
+def simulation_unsupported(design: Design) -> str | None:
+    """Why the simulators cannot run ``design`` (one line naming the case
+    key), or None. They integrate a delay of at most one sample and the
+    plain measured capacitor-current damping path."""
+    if design.sampling.delay > 1.0:
+        return (f"[sampling] delay: the simulation handles a total loop delay of at most 1 sampling period, "
+                f"got {design.sampling.delay:g} (check, map, grid, pick and export model it exactly)")
+    filt = getattr(design.control, "damping_filter", None)
+    if filt is not None and filt.kind != "measured":
+        return (f"[control] damping_filter: the simulation handles only the measured capacitor current, "
+                f"got {filt.kind!r} (check, map, grid and pick model it exactly)")
+    return None
+
+
 @limited
 def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float | None = None) -> Waveforms:
     """Simulate ``design`` under ``scenario`` (default: :func:`loopcheck.scenario.default_scenario`).
@@ -345,6 +359,9 @@ def simulate(design: Design, scenario: Scenario | None = None, Hi_V_per_A: float
     ``Hi_V_per_A`` [V/A] overrides the design's capacitor-current feedback
     gain (e.g. 0 for the undamped comparison). See the module docstring for
     the model, the exact integration and its references."""
+    why = simulation_unsupported(design)
+    if why is not None:
+        raise ValueError(why)
     if scenario is None:
         scenario = default_scenario()
     Hi = design.control.Hi_V_per_A if Hi_V_per_A is None else float(Hi_V_per_A)

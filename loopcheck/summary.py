@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 
+from loopcheck.damping_text import critical_formula, describe, is_filtered
 from loopcheck.units import format_quantity as q
 
 __all__ = ["format_summary", "describe_design"]
@@ -100,7 +101,7 @@ def describe_design(design) -> list[str]:
     if c.Hi_V_per_A == 0:
         lines.append("        capacitor-current damping: off (Hi = 0 V/A)")
     else:
-        lines.append(f"        capacitor-current damping: Hi = {q(c.Hi_V_per_A, 'V/A', prefix=False)}")
+        lines.append(f"        capacitor-current damping: Hi = {q(c.Hi_V_per_A, 'V/A', prefix=False)}" + (f" x H(z), {describe(c.damping_filter)}" if is_filtered(c) else ""))
     return lines
 
 
@@ -130,7 +131,7 @@ def format_summary(case, analysis, range_verdict=None, closed_loop=None) -> str:
         [
             f"{q(a.resonance_hz, 'Hz')} with Lg, {q(a.resonance_no_grid_hz, 'Hz')} without Lg "
             f"(fr/fs = {a.resonance_hz / fs:.4f})",
-            f"critical frequency fs/(4*delay+2) = {q(a.critical_hz, 'Hz')} (delay {delay:g}); "
+            f"critical frequency {critical_formula(design)} = {q(a.critical_hz, 'Hz')} (delay {delay:g}); "
             f"the resonance lies {side} it:",
             meaning,
         ],

@@ -114,6 +114,11 @@ def simulate_switched(design: Design, pwm: PwmSpec, scenario: Scenario, Hi_V_per
     Returns the :class:`loopcheck.simulate.Waveforms` of phase a; ``vi_V`` is
     the switched phase voltage, ``u_V`` the controller output. See the
     module docstring."""
+    from .simulate import simulation_unsupported
+
+    why = simulation_unsupported(design)
+    if why is not None:
+        raise ValueError(why)
     Hi = design.control.Hi_V_per_A if Hi_V_per_A is None else float(Hi_V_per_A)
     Ts = design.sampling.Ts_s
     d = design.sampling.delay

@@ -66,6 +66,7 @@ from typing import Callable
 import numpy as np
 
 from loopcheck.controller import controller_blocks, parallel
+from loopcheck.damping_filter import damping_critical_hz, with_damping_filter
 from loopcheck.discretize import discretize_plant
 from loopcheck.loop import OUTPUT_I1, OUTPUT_I2, close_damping_loop, series_open_loop
 from loopcheck.margins import POLE_AT_POINT_TOL
@@ -248,7 +249,8 @@ def _discrete_plants(design: Design, values: ComponentValues, Lg_H):
     Lg = np.asarray(Lg_H, dtype=float)
     p = lcl_state_space(values.L1_H, values.C_F, values.L2_H + Lg, values.R1_ohm, values.R2_ohm + g.Rg_ohm,
                         kind, values.Rd_ohm, values.Cd_F, values.Ld_H)
-    return discretize_plant(p.A, p.B, p.C, design.sampling.Ts_s, design.sampling.delay)
+    Ts = design.sampling.Ts_s
+    return with_damping_filter(discretize_plant(p.A, p.B, p.C, Ts, design.sampling.delay), design.control, Ts)
 
 
 @dataclass(frozen=True)
@@ -1055,7 +1057,7 @@ def sweep_grid(design: Design, Lg_range_H: tuple[float, float] | None = None, sp
     if Lg_range_H is None:
         Lg_range_H = design.grid.Lg_range_H or (design.grid.Lg_H, design.grid.Lg_H)
     lo, hi = float(Lg_range_H[0]), float(Lg_range_H[1])
-    fcrit = design.sampling.critical_hz
+    fcrit = damping_critical_hz(design)
     f = design.filter
     lg_star = critical_crossing_lg(f.L1_H, f.shunt_capacitance_F, f.L2_H, fcrit)
     labels, cvals = corner_values(design, spec)

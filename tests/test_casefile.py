@@ -221,9 +221,9 @@ ERRORS = [
     ({"grid__Lg": '"-1 mH"'}, ["[grid] Lg: must not be negative"]),
     ({"sampling__fs": '"0 Hz"'}, ["[sampling] fs: must be greater than zero"]),
     ({"control__Kp": '"0 V/A"'}, ["[control] Kp: must be greater than zero"]),
-    ({"sampling__delay": "1.5"}, ["[sampling] delay: must lie between 0 and 1"]),
-    ({"sampling__delay": "-0.1"}, ["[sampling] delay: must lie between 0 and 1"]),
-    ({"sampling__delay": '"one"'}, ["[sampling] delay: expected the computation delay"]),
+    ({"sampling__delay": "4.5"}, ["[sampling] delay: must lie between 0 and 4"]),
+    ({"sampling__delay": "-0.1"}, ["[sampling] delay: must lie between 0 and 4"]),
+    ({"sampling__delay": '"one"'}, ["[sampling] delay: expected the total loop delay"]),
     ({"control__feedback": '"grid-side"'}, ['[control] feedback: expected one of "grid", "converter"', 'did you mean "grid"']),
     ({"control__kind": '"PID"'}, ['[control] kind: expected one of "P", "PI", "PR"']),
     ({"control__integrator": '"euler"'}, ['[control] integrator: expected one of "forward-euler"']),
@@ -321,7 +321,7 @@ def test_all_bad_files_reported_before_any_output(tmp_path):
     bad1 = tmp_path / "bad1.toml"
     bad1.write_text(variant(filter__C='"10 mH"'))
     bad2 = tmp_path / "bad2.toml"
-    bad2.write_text(variant(sampling__delay="2"))
+    bad2.write_text(variant(sampling__delay="5"))
     result = runner.invoke(app, ["check", str(good), str(bad1), str(bad2)], env=ENV)
     assert result.exit_code == 2 and result.stdout == ""
     lines = result.stderr.strip().splitlines()
@@ -377,7 +377,7 @@ def test_docs_example_parses_and_error_examples_match():
         3: variant(filter__C='"10 mH"'),
         4: variant(filter__L1='"abc"'),
         5: variant(filter__C='"0 uF"'),
-        6: variant(sampling__delay="1.5"),
+        6: variant(sampling__delay="4.5"),
         7: variant(control__feedback='"grid-side"'),
     }
     for index, text in produced.items():

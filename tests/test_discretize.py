@@ -176,7 +176,8 @@ def test_batched_equals_unbatched():
 
 
 def test_delay_outside_range_is_rejected():
-    # Engine contract (issue 2: the delay is any value 0..1 of a sample).
+    # Engine contract (issue 13: the total delay is any value 0..4 samples).
     p = lossy("none")
-    with pytest.raises(ValueError):
-        discretize_plant(p.A, p.B, p.C, TS, 1.5)
+    for bad in (-0.1, 4.5):
+        with pytest.raises(ValueError):
+            discretize_plant(p.A, p.B, p.C, TS, bad)
