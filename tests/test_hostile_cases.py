@@ -7,7 +7,7 @@ physical impossibility or a malformed entry that must never be analysed:
 - malformed or nonsensical units: "1.5 mm" or "20 uH" where an inductance or
   a capacitance belongs, "nan H", "1e400 H", an empty string, a word;
 - impossible values: a negative or zero inductance or capacitance, fs <= 0,
-  a computation delay outside 0..1, Kp <= 0;
+  a computation delay outside 0..4 samples, Kp <= 0;
 - resonators: a repeated harmonic, h <= 1, a harmonic at or above fs/2, a
   harmonic that is not a whole number;
 - wrong types (a boolean, a list, a table where a number belongs, a number
@@ -57,7 +57,7 @@ BAD = {
     ("filter", "R1"): ['"-1 Ohm"', '"1 H"', '"nan Ohm"'],
     ("grid", "f"): ['"0 Hz"', '"-50 Hz"', '"50 kH"', '""'],
     ("sampling", "fs"): ['"0 Hz"', '"-10 kHz"', '"10 kH"', '""', '"nan Hz"', "0", "-1e4"],
-    ("sampling", "delay"): ["1.5", "-0.1", '"one"', "nan", "inf", "[1]"],
+    ("sampling", "delay"): ["4.5", "-0.1", '"one"', "nan", "inf", "[1]"],
     ("control", "Kp"): ['"0 V/A"', '"-5 V/A"', '"10 A/V"', '"nan V/A"', '""'],
     ("control", "Hi"): ['"5 A/V"', '"nan V/A"', '"1e400 V/A"'],
     ("control", "kind"): ['"PID"', '"p"', "1", '""'],
