@@ -5,7 +5,7 @@
 2. ``analyse`` on a PR controller with resonators up to the 13th harmonic
    at fs = 50 kHz (17 controller states): median of N runs. Goal: under
    0.5 s.
-3. The cost of ``loopcheck --help``: the import time of ``loopcheck.cli``
+3. The cost of ``loopcheck --help``: the import time of ``loopcheck.cli.main``
    measured with ``python -X importtime`` in a fresh interpreter, the
    heavy modules it must NOT load (numpy, scipy, control, matplotlib,
    sympy) and the wall time of ``python -m loopcheck --help``. Goal: under
@@ -51,7 +51,7 @@ def median_time(fn, runs: int) -> tuple[float, float]:
 
 def pr13_design():
     """Invented 50 kHz grid-side PR design with resonators 1, 3, 5, ..., 13."""
-    from loopcheck.model import Control, Design, Filter, Grid, Sampling
+    from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
     L1, L2, C, Lg = 0.9e-3, 0.3e-3, 4.0e-6, 0.1e-3
     return Design(
@@ -67,10 +67,10 @@ def pr13_design():
 
 
 def import_profile() -> tuple[float, list[str]]:
-    """Cumulative import time of loopcheck.cli [s] and the heavy top-level
+    """Cumulative import time of loopcheck.cli.main [s] and the heavy top-level
     modules it pulled in, from ``python -X importtime`` in a fresh process."""
     proc = subprocess.run(
-        [sys.executable, "-X", "importtime", "-c", "import loopcheck.cli"],
+        [sys.executable, "-X", "importtime", "-c", "import loopcheck.cli.main"],
         cwd=ROOT, capture_output=True, text=True, env=dict(os.environ, PYTHONPATH=ROOT),
     )
     total_us = 0
@@ -85,7 +85,7 @@ def import_profile() -> tuple[float, list[str]]:
         top = name.strip().split(".")[0]
         if top in HEAVY:
             heavy.add(top)
-        if name.strip() == "loopcheck.cli":
+        if name.strip() == "loopcheck.cli.main":
             total_us = int(parts[1])
     return total_us * 1e-6, sorted(heavy)
 
@@ -112,8 +112,8 @@ def main() -> None:
 
     print(f"loopcheck check benchmarks ({args.runs} runs each, median; wall / CPU of this process)")
 
-    from loopcheck.analysis import analyse
-    from loopcheck.casefile import read_case
+    from loopcheck.engine.analysis import analyse
+    from loopcheck.io.casefile import read_case
 
     demo = read_case(DEMO_CASE).design
     wall, cpu = median_time(lambda: analyse(demo), args.runs)
@@ -128,7 +128,7 @@ def main() -> None:
 
     imp, heavy = import_profile()
     help_wall = fresh_process_time(["--help"], max(3, args.runs // 3))
-    print(f"3. import loopcheck.cli: {imp * 1e3:.1f} ms (python -X importtime, cumulative); "
+    print(f"3. import loopcheck.cli.main: {imp * 1e3:.1f} ms (python -X importtime, cumulative); "
           f"heavy modules loaded: {', '.join(heavy) if heavy else 'none'}")
     print(f"   python -m loopcheck --help: {help_wall * 1e3:.0f} ms wall in a fresh process  (goal < 300 ms)")
 

@@ -23,9 +23,10 @@ sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 import numpy as np  # noqa: E402
 
-from loopcheck.admittance import design_admittance, passivity_bands  # noqa: E402
-from loopcheck.casefile import read_case  # noqa: E402
-from loopcheck.grid_network import exact_verdict, impedance_ratio_verdict, read_grid_network  # noqa: E402
+from loopcheck.engine.admittance import design_admittance, passivity_bands  # noqa: E402
+from loopcheck.io.casefile import read_case  # noqa: E402
+from loopcheck.design.grid_network import exact_verdict, impedance_ratio_verdict
+from loopcheck.io.read_network import read_grid_network
 
 
 def median_time(fn, runs):

@@ -30,8 +30,8 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 
 import numpy as np  # noqa: E402
 
-from loopcheck import maps  # noqa: E402
-from loopcheck.model import Control, Design, Filter, Grid, Sampling  # noqa: E402
+from loopcheck.design import maps  # noqa: E402
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling  # noqa: E402
 
 # an invented 14 kHz grid-side-current PR design
 L1, C, L2, R1, R2 = 2.0e-3, 6.8e-6, 0.8e-3, 0.015, 0.005

@@ -111,8 +111,8 @@ def python_control_per_point(case_path, xr, yr, sample: int, rng) -> float:
     """Seconds per point of the python-control loop on random map points."""
     from reference_loop import reference_loop
 
-    from loopcheck import maps
-    from loopcheck.casefile import read_case
+    from loopcheck.design import maps
+    from loopcheck.io.casefile import read_case
 
     design = read_case(case_path).design
     xs = rng.uniform(*xr, sample)
@@ -136,7 +136,7 @@ def main() -> None:
     rng = np.random.default_rng(1)
     import control  # noqa: F401  (import time not counted)
 
-    from loopcheck import map_kernels
+    from loopcheck.engine import map_kernels
 
     print(f"kernels: {map_kernels.BACKEND} (LOOPCHECK_NUMBA={os.environ.get('LOOPCHECK_NUMBA', 'unset')})")
     with tempfile.TemporaryDirectory() as tmp:

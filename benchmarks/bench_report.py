@@ -19,8 +19,8 @@ GOAL_S = 30.0
 
 
 def main(paths: list[str]) -> int:
-    from loopcheck.casefile import read_case
-    from loopcheck.report import build_report
+    from loopcheck.io.casefile import read_case
+    from loopcheck.figures.report import build_report
 
     cases = paths or sorted(str(p) for p in (ROOT / "cases").glob("*.toml"))
     worst = 0.0

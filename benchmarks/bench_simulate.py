@@ -17,10 +17,10 @@ sys.path.insert(0, str(ROOT))
 
 
 def main(paths: list[str]) -> int:
-    from loopcheck.casefile import read_case
-    from loopcheck.harmonics import PwmSpec, harmonic_check, operating_point
-    from loopcheck.scenario import parse_scenario
-    from loopcheck.simulate import resonance_rate_check, simulate
+    from loopcheck.io.casefile import read_case
+    from loopcheck.harmonics.spectrum import PwmSpec, harmonic_check, operating_point
+    from loopcheck.io.read_scenario import parse_scenario
+    from loopcheck.timedomain.simulate import resonance_rate_check, simulate
 
     cases = paths or sorted(str(p) for p in (ROOT / "cases").glob("*.toml"))
     print(f"{'case':<44}{'samples':>9}{'simulate':>11}{'rate check':>12}{'harmonics':>11}")

@@ -7,11 +7,11 @@ falls on all three alike:
 
 * ``default``: the BLAS thread count left as the libraries set it, and
   loopcheck's own kernel limit switched off
-  (``loopcheck.threads.KERNEL_BLAS_THREADS = None``): the behaviour before
+  (``loopcheck.engine.threads.KERNEL_BLAS_THREADS = None``): the behaviour before
   the limit existed;
 * ``kernels``: as shipped: the BLAS limited to one thread inside
   loopcheck's batched small-matrix kernels only
-  (:func:`loopcheck.threads.small_matrix_kernels`);
+  (:func:`loopcheck.engine.threads.small_matrix_kernels`);
 * ``process 1``: the whole command under
   ``threadpoolctl.threadpool_limits(1, "blas")``, the upper bound of what a
   limit can gain.
@@ -72,8 +72,8 @@ def kernel_table(repeats: int = 15) -> None:
     import scipy.linalg
     from threadpoolctl import ThreadpoolController
 
-    import loopcheck.threads as lt
-    from loopcheck.expm import expm_batched
+    import loopcheck.engine.threads as lt
+    from loopcheck.engine.expm import expm_batched
 
     ctl = ThreadpoolController()
     rng = np.random.default_rng(0)
@@ -130,8 +130,8 @@ def main() -> None:
     from threadpoolctl import threadpool_info, threadpool_limits
     from typer.testing import CliRunner
 
-    import loopcheck.threads as lt
-    from loopcheck.cli import app
+    import loopcheck.engine.threads as lt
+    from loopcheck.cli.main import app
 
     runner = CliRunner()
     env = {"COLUMNS": "200", "NO_COLOR": "1"}

@@ -26,7 +26,7 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 
 import numpy as np  # noqa: E402
 
-from loopcheck.model import Control, Design, Filter, Grid, Sampling  # noqa: E402
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling  # noqa: E402
 
 # an invented 20 kHz grid-side-current PR design with capacitor-current damping
 DESIGN = Design(Filter(1.2e-3, 10e-6, 0.5e-3, 0.02, 0.01), Grid(50.0, 1e-3), Sampling(20e3, 1.0),
@@ -52,10 +52,10 @@ def report(name, t, goal):
 def main() -> None:
     from dataclasses import replace
 
-    from loopcheck.analysis import analyse
-    from loopcheck.pick import pick_gain
-    from loopcheck.tolerance import ComponentTolerance, ToleranceSpec, corner_values
-    from loopcheck.weakgrid import Targets, evaluate_points, monte_carlo, stable_lg_intervals
+    from loopcheck.engine.analysis import analyse
+    from loopcheck.design.pick import pick_gain
+    from loopcheck.design.tolerance import ComponentTolerance, ToleranceSpec, corner_values
+    from loopcheck.design.weakgrid import Targets, evaluate_points, monte_carlo, stable_lg_intervals
 
     Lg = np.linspace(*RANGE, 100)
     Hi = np.linspace(3.0, 10.0, 100)

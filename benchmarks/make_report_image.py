@@ -39,8 +39,8 @@ def main() -> int:
         print("chromium not found: apt-get install -y chromium", file=sys.stderr)
         return 2
 
-    from loopcheck.casefile import read_case
-    from loopcheck.report import build_report
+    from loopcheck.io.casefile import read_case
+    from loopcheck.figures.report import build_report
 
     # show the case path relative to the repository, never a machine path
     case = Path(args.case).resolve()

@@ -1,6 +1,6 @@
 """``python -m loopcheck`` runs the command-line interface."""
 
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 if __name__ == "__main__":  # pragma: no cover - exercised through subprocess tests
     app(prog_name="loopcheck")

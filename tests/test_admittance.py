@@ -1,5 +1,5 @@
 """Output admittance Yo = -i2/vg of the sampled current loop and its
-non-passive bands (loopcheck.admittance).
+non-passive bands (loopcheck.engine.admittance).
 
 Outside references:
 
@@ -37,8 +37,8 @@ import pytest
 from scipy.integrate import simpson
 from scipy.linalg import expm
 
-from loopcheck.admittance import Feedforward, design_admittance, hold_response, passivity_bands
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine.admittance import Feedforward, design_admittance, hold_response, passivity_bands
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 L1, C, L2 = 1.5e-3, 10e-6, 0.5e-3
 FS = 10e3

@@ -36,7 +36,7 @@ def test_api_page_examples_run(monkeypatch):
 @pytest.mark.parametrize("name", ["commercial-30kva-weak-grid.toml", "central-250kva-converter-side.toml",
                                   "bench-15kva-no-damping.toml"])
 def test_control_systems_match_the_factored_loop(name):
-    from loopcheck.loop import build_loop
+    from loopcheck.engine.loop import build_loop
 
     case = lc.read_case(REPO / "cases" / name)
     L, T = lc.control_systems(case)

@@ -18,7 +18,7 @@ import math
 import pytest
 from typer.testing import CliRunner
 
-from loopcheck.casefile import (
+from loopcheck.io.casefile import (
     REQUIRED,
     CaseError,
     case_from_string,
@@ -30,7 +30,7 @@ from loopcheck.casefile import (
     read_quantity,
     where,
 )
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 runner = CliRunner()

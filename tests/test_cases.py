@@ -19,8 +19,8 @@ from pathlib import Path
 import pytest
 from typer.testing import CliRunner
 
-from loopcheck.casefile import read_case
-from loopcheck.cli import app
+from loopcheck.io.casefile import read_case
+from loopcheck.cli.main import app
 
 CASES = sorted((Path(__file__).resolve().parent.parent / "cases").glob("*.toml"))
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}

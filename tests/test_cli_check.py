@@ -22,7 +22,7 @@ from scipy.signal import cont2discrete
 from typer.testing import CliRunner
 
 from loopcheck import __version__
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 runner = CliRunner()
@@ -192,7 +192,7 @@ def test_help_does_not_import_heavy_libraries():
     code = (
         "import sys\n"
         "sys.argv = ['loopcheck', '--help']\n"
-        "from loopcheck.cli import app\n"
+        "from loopcheck.cli.main import app\n"
         "try:\n"
         "    app()\n"
         "except SystemExit:\n"
@@ -222,11 +222,11 @@ def test_demo_case_summary_runs():
     assert "BELOW" in result.stdout
 
 
-# --- shared CLI plumbing (loopcheck.cli_common) --------------------------------
+# --- shared CLI plumbing (loopcheck.cli.common) --------------------------------
 
 
 def test_atomic_path_renames_on_success_and_cleans_up_on_failure(tmp_path):
-    from loopcheck.cli_common import atomic_path, atomic_write_text
+    from loopcheck.cli.common import atomic_path, atomic_write_text
 
     target = tmp_path / "sub" / "out.png"
     with atomic_path(target) as tmp:
@@ -250,14 +250,14 @@ def test_atomic_path_renames_on_success_and_cleans_up_on_failure(tmp_path):
 
 
 def test_json_line_is_strict():
-    from loopcheck.cli_common import json_line
+    from loopcheck.cli.common import json_line
 
     line = json_line({"a": float("nan"), "b": [float("inf"), 1.5], "c": (1, 2), "d": complex(1, -2), "e": np.float64(2.5)})
     assert strict_json(line) == {"a": None, "b": [None, 1.5], "c": [1, 2], "d": [1.0, -2.0], "e": 2.5}
 
 
 def test_progress_is_silent_off_a_terminal(capsys):
-    from loopcheck.cli_common import progress
+    from loopcheck.cli.common import progress
 
     with progress(3, "work") as advance:
         for _ in range(3):

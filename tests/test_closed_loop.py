@@ -1,4 +1,4 @@
-"""Closed-loop bandwidth and dominant poles (loopcheck.closed_loop, shown by
+"""Closed-loop bandwidth and dominant poles (loopcheck.engine.closed_loop, shown by
 ``check``) against python-control.
 
 Oracles: the closed loop rebuilt independently with python-control
@@ -22,10 +22,10 @@ from typer.testing import CliRunner
 
 from reference_loop import reference_loop
 
-from loopcheck.analysis import analyse
-from loopcheck.casefile import read_case
-from loopcheck.cli import app
-from loopcheck.closed_loop import characterise
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import read_case
+from loopcheck.cli.main import app
+from loopcheck.engine.closed_loop import characterise
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}

@@ -1,4 +1,4 @@
-"""Controller blocks (loopcheck.controller) against outside references:
+"""Controller blocks (loopcheck.engine.controller) against outside references:
 python-control ``sample_system``/``parallel`` and scipy ``cont2discrete``,
 and the published frequency warping of the plain Tustin resonator.
 
@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from loopcheck.controller import (
+from loopcheck.engine.controller import (
     block_response,
     controller_blocks,
     controller_response,
@@ -20,7 +20,7 @@ from loopcheck.controller import (
     proportional_block,
     resonator_block,
 )
-from loopcheck.model import Control
+from loopcheck.engine.model import Control
 
 F1 = 50.0
 

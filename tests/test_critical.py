@@ -26,12 +26,12 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from loopcheck import symbolic
-from loopcheck.analysis import analyse
-from loopcheck.loop import build_loop
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
-from loopcheck.plant import OUTPUT_IC
-from loopcheck.verdict import spectral_radius
+from loopcheck.engine import symbolic
+from loopcheck.engine.analysis import analyse
+from loopcheck.engine.loop import build_loop
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine.plant import OUTPUT_IC
+from loopcheck.engine.verdict import spectral_radius
 
 # invented scenario: 1.5 mH converter side, 0.5 mH grid side, fs = 12 kHz
 L1, L2 = 1.5e-3, 0.5e-3
@@ -165,7 +165,7 @@ def test_exact_inner_bound_against_engine_eigenvalues(ratio):
     # Exact bound of the capacitor-current damping loop alone, one sample of
     # delay: characteristic polynomial z^3 - 2c z^2 + (1 + k) z - k, Jury
     # conditions => 0 < k < 2c - 1 below fs/6 (derived with sympy in
-    # loopcheck.symbolic; the region statement after Parker et al. 2014 and
+    # loopcheck.engine.symbolic; the region statement after Parker et al. 2014 and
     # Pan et al. 2014, from memory). Checked against the engine's inner-loop
     # eigenvalues by bisection on Hi; the plant integrator z = 1 is not in the
     # damping loop (ic/vi has a zero there) and is set aside.

@@ -34,13 +34,13 @@ import pytest
 import scipy.linalg
 from scipy.optimize import brentq
 
-from loopcheck import maps
-from loopcheck.analysis import analyse
-from loopcheck.casefile import CaseError, case_from_string
-from loopcheck.damping_filter import critical_frequency_hz
-from loopcheck.loop import build_loop
-from loopcheck.model import Control, DampingFilter, Design, Filter, Grid, Sampling
-from loopcheck.plant import OUTPUT_IC
+from loopcheck.design import maps
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import CaseError, case_from_string
+from loopcheck.engine.damping_filter import critical_frequency_hz
+from loopcheck.engine.loop import build_loop
+from loopcheck.engine.model import Control, DampingFilter, Design, Filter, Grid, Sampling
+from loopcheck.engine.plant import OUTPUT_IC
 from reference_loop import controller, lcl_matrices, spectral_radius
 from test_long_delay import sampled_plant_long
 
@@ -280,7 +280,7 @@ from pathlib import Path  # noqa: E402
 
 from typer.testing import CliRunner  # noqa: E402
 
-from loopcheck.cli import app  # noqa: E402
+from loopcheck.cli.main import app  # noqa: E402
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}

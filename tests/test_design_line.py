@@ -1,4 +1,4 @@
-"""The design point's stable interval on a map (loopcheck.design_line and the
+"""The design point's stable interval on a map (loopcheck.design.design_line and the
 ``map`` summary) against an independent eigenvalue scan.
 
 Oracle: the closed loop rebuilt with python-control (tests/reference_loop.py:
@@ -28,10 +28,10 @@ from typer.testing import CliRunner
 
 from reference_loop import reference_loop, spectral_radius
 
-from loopcheck.casefile import read_case as load_case
-from loopcheck.cli import app
-from loopcheck.design_line import design_line
-from loopcheck.map_table import Overrides, map_spec
+from loopcheck.io.casefile import read_case as load_case
+from loopcheck.cli.main import app
+from loopcheck.design.design_line import design_line
+from loopcheck.io.map_table import Overrides, map_spec
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}

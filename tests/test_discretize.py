@@ -1,10 +1,10 @@
-"""Exact sampled plant (loopcheck.discretize) against outside references.
+"""Exact sampled plant (loopcheck.engine.discretize) against outside references.
 
 * delay 0: scipy.signal.cont2discrete(..., 'zoh') and python-control
   sample_system(..., 'zoh') on the same continuous matrices;
 * delay 1: the ZOH equivalent times z^-1;
 * fractional delays: the modified-z closed forms derived with sympy
-  (loopcheck.symbolic), and a time-domain simulation with
+  (loopcheck.engine.symbolic), and a time-domain simulation with
   scipy.signal.lsim of the delayed, held input;
 * batched construction equals the unbatched one.
 
@@ -18,9 +18,9 @@ import pytest
 import sympy as sp
 from scipy import signal
 
-from loopcheck import symbolic
-from loopcheck.discretize import discretize_plant
-from loopcheck.plant import lcl_state_space
+from loopcheck.engine import symbolic
+from loopcheck.engine.discretize import discretize_plant
+from loopcheck.engine.plant import lcl_state_space
 
 # invented scenario: 2.0 mH / 4.7 uF / 0.7 mH, grid 0.4 mH, fs = 8 kHz
 L1, C, L2, LG = 2.0e-3, 4.7e-6, 0.7e-3, 0.4e-3
@@ -112,7 +112,7 @@ def test_closed_forms_reduce_to_the_published_delay_one_form():
 def test_fractional_delay_matches_modified_z_closed_forms(delay):
     # Modified z-transform of the lossless plant (E. I. Jury, "Theory and
     # Application of the z-Transform Method", Wiley, 1964; from memory),
-    # derived with sympy in loopcheck.symbolic; relative error < 1e-9.
+    # derived with sympy in loopcheck.engine.symbolic; relative error < 1e-9.
     LT = L2 + LG
     p = lcl_state_space(L1, C, LT)
     d = discretize_plant(p.A, p.B, p.C, TS, delay)

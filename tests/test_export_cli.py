@@ -19,9 +19,10 @@ import pytest
 import scipy.signal as ss
 from typer.testing import CliRunner
 
-from loopcheck.casefile import read_case
-from loopcheck.cli import app
-from loopcheck.firmware import export_controller, read_firmware_settings, run_difference_equations
+from loopcheck.io.casefile import read_case
+from loopcheck.cli.main import app
+from loopcheck.design.firmware import export_controller, run_difference_equations
+from loopcheck.io.read_firmware import read_firmware_settings
 
 ROOT = Path(__file__).resolve().parent.parent
 DOC = (ROOT / "docs" / "firmware.md").read_text(encoding="utf-8")

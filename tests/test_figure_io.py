@@ -1,4 +1,4 @@
-"""Every command writes its figure through loopcheck.figure_io.save_figure:
+"""Every command writes its figure through loopcheck.figures.figure_io.save_figure:
 the format follows the suffix and the bytes carry no date, so the same
 figure gives the same file (matplotlib's documented ``metadata`` keys of
 ``Figure.savefig``; common practice for reproducible outputs)."""
@@ -6,7 +6,7 @@ figure gives the same file (matplotlib's documented ``metadata`` keys of
 import pytest
 from matplotlib.figure import Figure
 
-from loopcheck.figure_io import FIGURE_SUFFIXES, save_figure
+from loopcheck.figures.figure_io import FIGURE_SUFFIXES, save_figure
 
 MAGIC = {".png": b"\x89PNG", ".svg": b"<?xml", ".pdf": b"%PDF"}
 

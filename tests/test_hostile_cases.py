@@ -30,7 +30,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from typer.testing import CliRunner
 
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
@@ -174,7 +174,7 @@ def test_a_broken_demo_case_is_one_line_naming_the_key(tmp_path_factory, m, comm
 def test_the_mutations_cover_every_bad_value():
     """Every listed bad value is refused by the reader with the key named
     (the property test above samples them; this runs each once)."""
-    from loopcheck.casefile import CaseError, case_from_string
+    from loopcheck.io.casefile import CaseError, case_from_string
 
     with open(DEMOS[0], "rb") as fh:
         doc = tomllib.load(fh)

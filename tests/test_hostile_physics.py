@@ -33,9 +33,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from typer.testing import CliRunner
 
-from loopcheck.casefile import case_from_string
-from loopcheck.cli import app
-from loopcheck.verdict import TOLERANCE
+from loopcheck.io.casefile import case_from_string
+from loopcheck.cli.main import app
+from loopcheck.engine.verdict import TOLERANCE
 
 from reference_loop import reference_loop, spectral_radius
 

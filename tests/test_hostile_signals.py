@@ -79,7 +79,7 @@ RUNS = {
 
 WRAPPER = textwrap.dedent("""
     import contextlib, os, sys, time
-    import loopcheck.cli_common as cc
+    import loopcheck.cli.common as cc
 
     last = sys.argv.pop(1)  # the base name of the last output the command writes
     real = cc.atomic_path
@@ -95,9 +95,9 @@ WRAPPER = textwrap.dedent("""
 
     cc.atomic_path = pausing
     if os.environ.get("CORE_SECTIONS_ONLY"):
-        import loopcheck.report as rep
+        import loopcheck.figures.report as rep
         rep.SECTION_BUILDERS = tuple(b for b in rep.SECTION_BUILDERS if b[0] in rep._CORE)
-    from loopcheck.cli import app
+    from loopcheck.cli.main import app
     app(prog_name="loopcheck")
 """)
 

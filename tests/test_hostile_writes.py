@@ -33,7 +33,7 @@ import sys
 import pytest
 from typer.testing import CliRunner
 
-from loopcheck.cli import app
+from loopcheck.cli.main import app
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
@@ -87,7 +87,7 @@ IDS = [f"{w[0]} {w[1]}" for w in WRITERS]
 def quick_report(monkeypatch):
     """The report with its core sections only (the slow optional sections
     add nothing to the write path under test)."""
-    import loopcheck.report as rep
+    import loopcheck.figures.report as rep
 
     monkeypatch.setattr(rep, "SECTION_BUILDERS", tuple(b for b in rep.SECTION_BUILDERS if b[0] in rep._CORE))
 
@@ -172,9 +172,9 @@ def test_a_disk_that_fills_during_the_write(tmp_path, monkeypatch, quick_report,
     out.write_bytes(b"previous output")
     import matplotlib.figure
 
-    import loopcheck.simulate
+    import loopcheck.timedomain.simulate
 
-    real_savefig, real_csv = matplotlib.figure.Figure.savefig, loopcheck.simulate.write_csv
+    real_savefig, real_csv = matplotlib.figure.Figure.savefig, loopcheck.timedomain.simulate.write_csv
 
     def half_figure(self, fname, *a, **k):
         if not isinstance(fname, (str, os.PathLike)):  # the report's figures drawn into memory
@@ -189,10 +189,10 @@ def test_a_disk_that_fills_during_the_write(tmp_path, monkeypatch, quick_report,
 
     with monkeypatch.context() as m:
         m.setattr(matplotlib.figure.Figure, "savefig", half_figure)
-        m.setattr(loopcheck.simulate, "write_csv", half_csv)
+        m.setattr(loopcheck.timedomain.simulate, "write_csv", half_csv)
         m.setattr(os, "fsync", _enospc)
         r = CliRunner().invoke(app, [command, str(case), option, str(out), *extra], env=ENV)
-    assert (real_savefig, real_csv) == (matplotlib.figure.Figure.savefig, loopcheck.simulate.write_csv)
+    assert (real_savefig, real_csv) == (matplotlib.figure.Figure.savefig, loopcheck.timedomain.simulate.write_csv)
     _one_line_exit_2(r, option, str(out), "No space left on device")
     assert out.read_bytes() == b"previous output"
     assert sorted(os.listdir(tmp_path)) == sorted(["case.toml", name])

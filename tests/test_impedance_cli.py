@@ -11,9 +11,9 @@ from pathlib import Path
 import numpy as np
 from typer.testing import CliRunner
 
-from loopcheck.casefile import read_case
-from loopcheck.cli import app
-from loopcheck.grid_network import GridNetwork, exact_verdict, network_impedance
+from loopcheck.io.casefile import read_case
+from loopcheck.cli.main import app
+from loopcheck.design.grid_network import GridNetwork, exact_verdict, network_impedance
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "cases" / "commercial-30kva-pfc-capacitor.toml"
@@ -107,7 +107,7 @@ def test_bad_table_key_and_bad_figure_suffix(tmp_path):
 def test_feedforward_table_reaches_both_verdicts(tmp_path):
     """A [feedforward] table is read and used by both verdicts (compared with
     the library called directly)."""
-    from loopcheck.admittance import Feedforward
+    from loopcheck.engine.admittance import Feedforward
 
     p = tmp_path / "ff.toml"
     p.write_text(DEMO.read_text() + '\n[feedforward]\ngain = 1\ncutoff = "2 kHz"\n')

@@ -1,10 +1,10 @@
 """A measured grid impedance (CSV) and the frequency-response Nyquist count
-(loopcheck.measured_grid).
+(loopcheck.design.measured_grid).
 
 Outside references: J. Sun, "Impedance-based stability criterion for
 grid-connected inverters", IEEE Trans. Power Electron., vol. 26, no. 11,
 2011 (from memory) for the count; the exact eigenvalue verdict of the same
-network given as components (loopcheck.grid_network, itself checked against
+network given as components (loopcheck.design.grid_network, itself checked against
 the engine and the coupled model) as the reference verdict. The "measured"
 tables are made from invented component networks.
 """
@@ -14,10 +14,11 @@ import math
 import numpy as np
 import pytest
 
-from loopcheck.casefile import CaseError
-from loopcheck.grid_network import GridNetwork, exact_verdict, network_impedance
-from loopcheck.measured_grid import measured_verdict, read_measured_impedance
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.io.casefile import CaseError
+from loopcheck.design.grid_network import GridNetwork, exact_verdict, network_impedance
+from loopcheck.design.measured_grid import measured_verdict
+from loopcheck.io.read_network import read_measured_impedance
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 
 def design(fs=20e3, L1=1.5e-3, C=10e-6, L2=0.5e-3, Kp=10.0, Hi=10.0):

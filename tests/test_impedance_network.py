@@ -1,5 +1,5 @@
 """Impedance-ratio stability on a grid network against the exact eigenvalue
-verdict (loopcheck.grid_network).
+verdict (loopcheck.design.grid_network).
 
 Outside references:
 
@@ -30,17 +30,17 @@ import pytest
 from hypothesis import HealthCheck, assume, event, given, settings
 from hypothesis import strategies as st
 
-from loopcheck.admittance import Feedforward
-from loopcheck.analysis import analyse
-from loopcheck.grid_network import (
+from loopcheck.engine.admittance import Feedforward
+from loopcheck.engine.analysis import analyse
+from loopcheck.design.grid_network import (
     GridNetwork,
     coupled_closed_loop_matrix,
     exact_verdict,
     impedance_ratio_verdict,
     network_impedance,
 )
-from loopcheck.loop import build_loop
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine.loop import build_loop
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 #: Cases closer than this to the unit circle (exact spectral radius) are
 #: near-marginal and excluded where a verdict is compared. (The 50 Hz

@@ -30,11 +30,11 @@ import pytest
 import scipy.linalg
 from scipy.optimize import brentq
 
-from loopcheck.analysis import analyse
-from loopcheck.casefile import CaseError, case_from_string
-from loopcheck.loop import build_loop
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
-from loopcheck.plant import OUTPUT_IC
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import CaseError, case_from_string
+from loopcheck.engine.loop import build_loop
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine.plant import OUTPUT_IC
 from reference_loop import controller, lcl_matrices, spectral_radius
 
 ct = pytest.importorskip("control")

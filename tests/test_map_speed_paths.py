@@ -1,5 +1,5 @@
-"""The fast modal path of the stability map (loopcheck.maps.gain_lines and
-loopcheck.map_kernels) checked against independent eigenvalue references.
+"""The fast modal path of the stability map (loopcheck.design.maps.gain_lines and
+loopcheck.engine.map_kernels) checked against independent eigenvalue references.
 
 Oracles: the closed loop rebuilt point by point with python-control
 (tests/reference_loop.py: circuit equations, ``sample_system`` ZOH, explicit
@@ -12,8 +12,9 @@ plant poles cluster near z = 1 at its low end.
 import numpy as np
 import pytest
 
-from loopcheck import map_kernels, maps
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine import map_kernels
+from loopcheck.design import maps
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 from reference_loop import reference_loop, spectral_radius
 
@@ -179,7 +180,7 @@ def test_a_map_too_large_for_memory_is_refused_in_one_line(tmp_path):
 
     from typer.testing import CliRunner
 
-    from loopcheck.cli import app
+    from loopcheck.cli.main import app
 
     case = Path(__file__).resolve().parents[1] / "benchmarks" / "wide-range-pr.toml"
     png = tmp_path / "m.png"
@@ -199,7 +200,7 @@ def test_csv_text_round_trips_every_value():
     import csv
     import io
 
-    from loopcheck.map_table import csv_text
+    from loopcheck.io.map_table import csv_text
 
     spec = maps.MapSpec(maps.Axis("fr/fs", 0.002, 0.49, 7), maps.Axis("Hi", 0.0, 20.0, 5), ("phase-margin",))
     m = maps.compute_map(WIDE, spec)
@@ -243,8 +244,8 @@ def test_crossing_exactly_on_a_frequency_grid_point_is_found(backend):
     # Method", Wiley, 1964, derived with sympy in tests/test_maps.py;
     # Parker, McGrath and Holmes, IEEE Trans. Ind. Appl., vol. 50, no. 1,
     # 2014; from memory)
-    from loopcheck.discretize import discretize_plant
-    from loopcheck.plant import OUTPUT_IC, lcl_state_space
+    from loopcheck.engine.discretize import discretize_plant
+    from loopcheck.engine.plant import OUTPUT_IC, lcl_state_space
 
     L1, L2, FS, ratio = 1.9e-3, 0.7e-3, 12e3, 0.12
     theta = 2 * np.pi * ratio

@@ -1,4 +1,4 @@
-"""Stability maps (loopcheck.maps) checked against the outside world.
+"""Stability maps (loopcheck.design.maps) checked against the outside world.
 
 Oracles used here: scipy.linalg.expm and scipy.signal.cont2discrete
 (reference libraries), numpy's polynomial-from-roots, sympy derivations of
@@ -15,12 +15,12 @@ import sympy as sp
 from scipy.linalg import expm
 from scipy.signal import cont2discrete
 
-from loopcheck import maps
-from loopcheck.analysis import analyse
-from loopcheck.discretize import discretize_plant
-from loopcheck.expm import expm_batched
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
-from loopcheck.plant import OUTPUT_IC, lcl_state_space
+from loopcheck.design import maps
+from loopcheck.engine.analysis import analyse
+from loopcheck.engine.discretize import discretize_plant
+from loopcheck.engine.expm import expm_batched
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.engine.plant import OUTPUT_IC, lcl_state_space
 
 # invented filter used by several checks
 L1, L2, FS = 1.9e-3, 0.7e-3, 12e3

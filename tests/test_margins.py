@@ -15,12 +15,12 @@ import pytest
 from scipy.optimize import brentq, minimize_scalar
 from scipy.signal import place_poles
 
-from loopcheck import margins as mg
-from loopcheck.analysis import analyse
-from loopcheck.controller import DiscreteSS, parallel, proportional_block
-from loopcheck.loop import Loop, build_loop, close_damping_loop
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
-from loopcheck.plant import OUTPUT_IC
+from loopcheck.engine import margins as mg
+from loopcheck.engine.analysis import analyse
+from loopcheck.engine.controller import DiscreteSS, parallel, proportional_block
+from loopcheck.engine.loop import Loop, build_loop, close_damping_loop
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.engine.plant import OUTPUT_IC
 
 from reference_loop import reference_loop, spectral_radius
 

@@ -14,8 +14,8 @@ import os
 import pytest
 from typer.testing import CliRunner
 
-from loopcheck.cli import app
-from loopcheck.cli_common import output_problem
+from loopcheck.cli.main import app
+from loopcheck.cli.common import output_problem
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 

@@ -1,4 +1,4 @@
-"""Checks of loopcheck.passive: damping-resistor losses against an
+"""Checks of loopcheck.design.passive: damping-resistor losses against an
 independent phasor calculation written here (series and parallel
 impedances, Kirchhoff's laws; common practice), and the variant rules.
 
@@ -15,9 +15,9 @@ import math
 import numpy as np
 import pytest
 
-from loopcheck.harmonics import OperatingPoint, PwmSpec, converter_sidebands, converter_voltage_phasor, modulation_index
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
-from loopcheck.passive import best_split_rc, compare_damping, resistor_loss, resonant_damping_ratio, rule_series_resistor_ohm
+from loopcheck.harmonics.spectrum import OperatingPoint, PwmSpec, converter_sidebands, converter_voltage_phasor, modulation_index
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.design.passive import best_split_rc, compare_damping, resistor_loss, resonant_damping_ratio, rule_series_resistor_ohm
 
 F1 = 50.0
 L1, C, L2, LG = 1.5e-3, 15e-6, 0.8e-3, 0.6e-3
@@ -130,7 +130,7 @@ CASE_30K = "cases/commercial-30kva-weak-grid.toml"
 def _case_with(extra: str):
     from pathlib import Path
 
-    from loopcheck.casefile import case_from_string
+    from loopcheck.io.casefile import case_from_string
 
     root = Path(__file__).resolve().parent.parent
     return case_from_string((root / CASE_30K).read_text() + extra, CASE_30K)
@@ -187,8 +187,8 @@ def _independent_ripple_W(kind, Rd, Cd, max_group, max_sideband):
 @pytest.mark.parametrize("groups, sidebands", [(4, 12), (1, 3), (2, 7)])
 def test_ripple_loss_uses_the_sidebands_of_the_limit_check(groups, sidebands):
     """Fails before issue 14: the losses always summed m <= 4, |n| <= 12."""
-    from loopcheck.harmonics import harmonic_check
-    from loopcheck.pwm_tables import operating_point_of, read_harmonics_options, read_pwm
+    from loopcheck.harmonics.spectrum import harmonic_check
+    from loopcheck.io.read_pwm import operating_point_of, read_harmonics_options, read_pwm
 
     case = _case_with(f"\n[harmonics]\nmax_carrier_group = {groups}\nmax_sideband = {sidebands}\n")
     pwm, _ = read_pwm(case)

@@ -10,11 +10,11 @@ import math
 import numpy as np
 import pytest
 
-from loopcheck.loop import build_loop
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
-from loopcheck.pick import _variants, default_hi_range, pick_gain
-from loopcheck.tolerance import ComponentTolerance, ToleranceSpec
-from loopcheck.weakgrid import Targets, evaluate_points, robustness_index
+from loopcheck.engine.loop import build_loop
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.design.pick import _variants, default_hi_range, pick_gain
+from loopcheck.design.tolerance import ComponentTolerance, ToleranceSpec
+from loopcheck.design.weakgrid import Targets, evaluate_points, robustness_index
 
 
 def _design(Kp=2.5, Hi=6.0, C=10e-6, L1=1.2e-3, L2=0.5e-3, fs=20e3, kind="PR"):
@@ -145,8 +145,8 @@ def test_pick_figure_hatches_every_unstable_band_over_its_whole_width():
 
     from reference_loop import reference_loop, spectral_radius
 
-    from loopcheck.casefile import read_case
-    from loopcheck.pick_plot import pick_figure, unstable_bands
+    from loopcheck.io.casefile import read_case
+    from loopcheck.figures.pick_plot import pick_figure, unstable_bands
 
     assert unstable_bands(np.array([3.0, 0.0, 1.0, 2.0]), np.array([True, False, False, True])) == [(0.0, 1.5)]
     case = read_case(str(Path(__file__).resolve().parent.parent / "cases" / "bench-15kva-no-damping.toml"))

@@ -1,4 +1,4 @@
-"""The continuous LCL plant (loopcheck.plant) against an independent route.
+"""The continuous LCL plant (loopcheck.engine.plant) against an independent route.
 
 The state-space matrices of ``plant.py`` are written from the circuit's
 differential equations; ``symbolic.py`` derives the same transfer functions
@@ -18,9 +18,9 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from loopcheck import symbolic
-from loopcheck.model import resonance_hz
-from loopcheck.plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space, plant_order
+from loopcheck.engine import symbolic
+from loopcheck.engine.model import resonance_hz
+from loopcheck.engine.plant import OUTPUT_I1, OUTPUT_I2, OUTPUT_IC, lcl_state_space, plant_order
 
 # invented demo filter: 1.2 mH / 6.8 uF / 0.45 mH, grid 0.3 mH
 P = dict(
@@ -48,7 +48,7 @@ def build(kind, p=P):
 
 @pytest.mark.parametrize("kind", KINDS)
 def test_state_space_matches_sympy_nodal_analysis(kind):
-    # Independent route: sympy nodal analysis (loopcheck.symbolic) vs the
+    # Independent route: sympy nodal analysis (loopcheck.engine.symbolic) vs the
     # state-space model; circuit laws are common practice (Kirchhoff).
     s = 2j * math.pi * np.geomspace(1.0, 50e3, 400)
     ss = build(kind)
@@ -142,13 +142,13 @@ def test_split_capacitor_resonance_tends_to_total_capacitance():
 
 
 def test_analysis_code_paths_do_not_import_sympy():
-    # Project rule: sympy is imported only by loopcheck.symbolic (slow import,
+    # Project rule: sympy is imported only by loopcheck.engine.symbolic (slow import,
     # reference route only). A fresh interpreter runs an analysis and must
     # not have loaded it.
     code = (
         "import sys\n"
-        "from loopcheck.model import Control, Design, Filter, Grid, Sampling\n"
-        "from loopcheck.analysis import analyse\n"
+        "from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling\n"
+        "from loopcheck.engine.analysis import analyse\n"
         "analyse(Design(Filter(1e-3, 1e-5, 5e-4), Grid(), Sampling(1e4), Control('grid', 'P', 5.0, Hi_V_per_A=3.0)))\n"
         "print('sympy' in sys.modules)\n"
     )

@@ -14,7 +14,7 @@ resonance/sampling ratios 0.02-0.45, with random capacitor-current damping:
   Bell Syst. Tech. J., vol. 11, pp. 126-147, 1932), with the open-loop
   poles counted on the python-control model;
 * the stable gain intervals contain the factor 1 exactly when the loop is
-  stable (D-decomposition, Neimark 1948, as cited in loopcheck.margins).
+  stable (D-decomposition, Neimark 1948, as cited in loopcheck.engine.margins).
 
 Random designs are generated, not taken from any source.
 """
@@ -25,8 +25,8 @@ import numpy as np
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from loopcheck.analysis import CONTOUR_OFFSET, analyse
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.engine.analysis import CONTOUR_OFFSET, analyse
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
 
 from reference_loop import reference_loop, spectral_radius
 

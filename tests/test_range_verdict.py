@@ -27,9 +27,9 @@ from typer.testing import CliRunner
 
 from reference_loop import reference_loop, spectral_radius
 
-from loopcheck.casefile import read_case
-from loopcheck.cli import app
-from loopcheck.range_verdict import range_verdict
+from loopcheck.io.casefile import read_case
+from loopcheck.cli.main import app
+from loopcheck.design.range_verdict import range_verdict
 
 CASES = Path(__file__).resolve().parent.parent / "cases"
 BENCH = CASES / "bench-15kva-no-damping.toml"
@@ -141,7 +141,7 @@ def test_a_declared_grid_network_decides_the_headline():
     d = case.design
     f, g, c = d.filter, d.grid, d.control
     net = case.tables["grid_network"]
-    from loopcheck.units import parse_quantity
+    from loopcheck.engine.units import parse_quantity
 
     Cs = parse_quantity(net["C_shunt"], "capacitance")
     Rs = parse_quantity(net["R_shunt"], "resistance")

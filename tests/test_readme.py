@@ -54,7 +54,7 @@ def test_ci_runs_the_readme_test_command_verbatim():
 
 
 def test_documented_commands_exist():
-    from loopcheck.cli import app
+    from loopcheck.cli.main import app
 
     registered = {c.name for c in app.registered_commands}
     documented = set(re.findall(r"`loopcheck ([a-z]+) ", README))

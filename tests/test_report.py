@@ -24,10 +24,10 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from loopcheck.analysis import analyse
-from loopcheck.casefile import case_from_string
-from loopcheck.cli import app
-from loopcheck.loop import build_loop
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import case_from_string
+from loopcheck.cli.main import app
+from loopcheck.engine.loop import build_loop
 
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 
@@ -99,7 +99,7 @@ def test_bode_curve_matches_python_control_state_space_response():
     transfer function, which is exactly what loses accuracy at this order."""
     import control as ct
 
-    from loopcheck.bode_plot import sample_loop
+    from loopcheck.figures.bode_plot import sample_loop
 
     case = demo_case(resist='R1 = "50 mOhm"\nR2 = "40 mOhm"')
     d = case.design
@@ -122,7 +122,7 @@ def test_bode_curve_matches_python_control_state_space_response():
 
 
 def test_bode_figure_marks_the_analysis_numbers():
-    from loopcheck.bode_plot import bode_figure, critical_label
+    from loopcheck.figures.bode_plot import bode_figure, critical_label
 
     case = demo_case()
     d = case.design
@@ -156,7 +156,7 @@ def test_bode_figure_marks_the_analysis_numbers():
 def test_bode_phase_is_odd_multiple_of_180_at_each_crossing():
     """Where L is real and negative its phase is an odd multiple of 180 deg
     (definition of the -180 deg crossing; common practice)."""
-    from loopcheck.bode_plot import sample_loop
+    from loopcheck.figures.bode_plot import sample_loop
 
     d = demo_case().design
     a = analyse(d)
@@ -183,7 +183,7 @@ def test_nyquist_curve_encirclements_match_python_control_and_eigenvalues(kp, hi
     J., vol. 11, 1932)."""
     import control as ct
 
-    from loopcheck.nyquist_plot import sample_contour, winding_of_curve
+    from loopcheck.figures.nyquist_plot import sample_contour, winding_of_curve
 
     d = demo_case(kp=kp, hi=hi, kind="P", resist='R1 = "50 mOhm"\nR2 = "40 mOhm"').design
     a = analyse(d)
@@ -208,7 +208,7 @@ def test_nyquist_curve_with_circle_poles_agrees_with_the_count():
     """With ideal resonators and a lossless filter (poles on the unit circle)
     the drawn contour passes outside them; its winding still equals P - Z
     from the eigenvalues."""
-    from loopcheck.nyquist_plot import sample_contour, winding_of_curve
+    from loopcheck.figures.nyquist_plot import sample_contour, winding_of_curve
 
     for kp, hi in [(15, 16), (10, 4)]:
         d = demo_case(kp=kp, hi=hi).design
@@ -219,7 +219,7 @@ def test_nyquist_curve_with_circle_poles_agrees_with_the_count():
 
 
 def test_nyquist_figure_states_P_N_Z():
-    from loopcheck.nyquist_plot import nyquist_figure
+    from loopcheck.figures.nyquist_plot import nyquist_figure
 
     d = demo_case().design
     a = analyse(d)
@@ -252,7 +252,7 @@ class _Scan(HTMLParser):
 
 @pytest.fixture(scope="module")
 def built():
-    from loopcheck.report import build_report
+    from loopcheck.figures.report import build_report
 
     case = demo_case(grid_extra=FULL_GRID, tables=FULL_TABLES)
     msgs: list[str] = []
@@ -261,7 +261,7 @@ def built():
 
 
 def test_report_has_every_section_and_figure(built):
-    from loopcheck.report import SECTION_IDS
+    from loopcheck.figures.report import SECTION_IDS
 
     _, rep, msgs = built
     scan = _Scan()
@@ -299,8 +299,8 @@ def test_report_sections_of_the_other_analyses_carry_their_results(built):
     missing section is a failure, not a skip."""
     case, rep, _ = built
     d = case.design
-    from loopcheck.scenario import parse_scenario
-    from loopcheck.simulate import resonance_rate_check
+    from loopcheck.io.read_scenario import parse_scenario
+    from loopcheck.timedomain.simulate import resonance_rate_check
 
     sec = _section(rep.html, "waveforms")
     assert "id='fig-waveforms'" in sec
@@ -324,7 +324,7 @@ def test_report_sections_of_the_other_analyses_carry_their_results(built):
 
     sec = _section(rep.html, "gains")
     assert "id='fig-pick'" in sec and "Hi interval meeting the targets" in sec
-    from loopcheck.firmware import controller_sections
+    from loopcheck.design.firmware import controller_sections
 
     si = controller_sections(d)
     for part in si.sections:
@@ -392,8 +392,8 @@ def test_report_safety_cautions(built):
 
 
 def test_report_escapes_user_text(monkeypatch):
-    import loopcheck.report as rp
-    from loopcheck.report import build_report
+    import loopcheck.figures.report as rp
+    from loopcheck.figures.report import build_report
 
     # user text sits in the header, the job and the inputs; skip the long analyses
     keep = {"job", "inputs", "verdict", "safety"}
@@ -423,7 +423,7 @@ def _write_case(tmp_path, text=None, name="case.toml"):
 
 
 def test_cli_report_writes_one_file(tmp_path, monkeypatch):
-    import loopcheck.report as rp
+    import loopcheck.figures.report as rp
 
     # the command's wiring; the full build through the command runs in test_report_browser.py
     keep = {"job", "inputs", "verdict", "frequency", "safety"}
@@ -438,7 +438,7 @@ def test_cli_report_writes_one_file(tmp_path, monkeypatch):
 
 
 def test_cli_report_json(tmp_path, monkeypatch, built):
-    import loopcheck.report as rp
+    import loopcheck.figures.report as rp
 
     _, rep, _ = built
     monkeypatch.setattr(rp, "build_report", lambda *a, **k: rep)  # the JSON shape only; the build is tested above
@@ -488,7 +488,7 @@ def test_cli_report_needs_an_html_name(tmp_path):
 
 
 def test_cli_report_failure_leaves_no_file(tmp_path, monkeypatch):
-    import loopcheck.report as rp
+    import loopcheck.figures.report as rp
 
     def boom(*args, **kwargs):
         raise RuntimeError("simulated failure while building")

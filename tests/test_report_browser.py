@@ -105,7 +105,7 @@ def report_file(tmp_path_factory):
     """The report of an invented demo case, written by the real command."""
     from typer.testing import CliRunner
 
-    from loopcheck.cli import app
+    from loopcheck.cli.main import app
 
     d = tmp_path_factory.mktemp("report")
     case = d / "browser-demo.toml"
@@ -134,7 +134,7 @@ class _Body(HTMLParser):
 
 
 def test_browser_renders_every_section_and_decodes_every_image(report_file, tmp_path):
-    from loopcheck.report import SECTION_IDS
+    from loopcheck.figures.report import SECTION_IDS
 
     path, html_text = report_file
     probe = tmp_path / "probe.html"

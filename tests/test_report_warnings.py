@@ -20,8 +20,8 @@ from typer.testing import CliRunner
 
 from reference_loop import reference_loop, spectral_radius
 
-from loopcheck.casefile import read_case
-from loopcheck.cli import app
+from loopcheck.io.casefile import read_case
+from loopcheck.cli.main import app
 
 CASE = Path(__file__).resolve().parent.parent / "cases" / "commercial-30kva-undamped.toml"
 ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
@@ -29,7 +29,7 @@ ENV = {"COLUMNS": "200", "NO_COLOR": "1"}
 
 @pytest.fixture(scope="module")
 def report_html():
-    from loopcheck.report import build_report
+    from loopcheck.figures.report import build_report
 
     return build_report(read_case(str(CASE))).html
 
@@ -69,7 +69,7 @@ def test_impedance_section_carries_the_impedance_command_verdicts():
     # the report's impedance section says what `loopcheck impedance` prints;
     # the eigenvalue verdict of the PFC demo is checked independently in
     # tests/test_range_verdict.py (python-control model with the bank's states)
-    from loopcheck.report import build_report
+    from loopcheck.figures.report import build_report
 
     pfc = Path(__file__).resolve().parent.parent / "cases" / "commercial-30kva-pfc-capacitor.toml"
     doc = build_report(read_case(str(pfc))).html

@@ -14,8 +14,8 @@ import math
 import numpy as np
 import pytest
 
-from loopcheck.casefile import case_from_string
-from loopcheck.scr import grid_strength, lg_from_scr, scr_from_lg
+from loopcheck.io.casefile import case_from_string
+from loopcheck.engine.scr import grid_strength, lg_from_scr, scr_from_lg
 
 
 def test_worked_value_400V_10kVA_50Hz_scr20():

@@ -1,4 +1,4 @@
-"""Checks of the sampled-data simulator (loopcheck.simulate) against
+"""Checks of the sampled-data simulator (loopcheck.timedomain.simulate) against
 independent references.
 
 * An independent closed-loop simulation written here: the filter's circuit
@@ -28,11 +28,11 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from loopcheck.analysis import analyse
-from loopcheck.controller import controller_blocks, parallel
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
-from loopcheck.scenario import Event, GridHarmonic, Scenario
-from loopcheck.simulate import (
+from loopcheck.engine.analysis import analyse
+from loopcheck.engine.controller import controller_blocks, parallel
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.timedomain.scenario import Event, GridHarmonic, Scenario
+from loopcheck.timedomain.simulate import (
     envelope_estimate,
     matrix_pencil,
     resonance_rate_check,
@@ -59,7 +59,7 @@ def make_design(Hi=10.0, Lg=0.0, delay=1.0, damping=None, R1=0.0, R2=0.0, Rg=0.0
 
 def circuit_rhs(design: Design, Lg: float):
     """dx/dt for x = [i1, vc, i2, (vd), (iL)] from Kirchhoff's laws, written
-    out here independently of loopcheck.plant; inputs vi(t), vg(t)."""
+    out here independently of loopcheck.engine.plant; inputs vi(t), vg(t)."""
     f = design.filter
     L1, C, R1 = f.L1_H, f.C_F, f.R1_ohm
     L2 = f.L2_H + Lg
@@ -337,7 +337,7 @@ def test_tripped_waveform_and_csv_end_at_the_trip_sample():
     does not (common practice for an overcurrent trip)."""
     import io
 
-    from loopcheck.simulate import write_csv
+    from loopcheck.timedomain.simulate import write_csv
 
     d = make_design(Hi=0.0)
     w = simulate(d, Scenario(duration_s=0.05, events=(Event(0.005, "voltage-pulse", peak_V=20.0),)))
@@ -378,7 +378,7 @@ def test_rate_check_window_starts_where_the_rounded_pulse_ends():
 def test_reference_is_drawn_on_the_panel_of_the_regulated_current(feedback, panel):
     # issue 12: the reference belongs beside the current the loop regulates
     # (i2 for grid-side feedback, i1 for converter-side; common practice)
-    from loopcheck.sim_plot import waveform_figure
+    from loopcheck.figures.sim_plot import waveform_figure
 
     d = Design(Filter(1.2e-3, 10e-6, 0.5e-3), Grid(50.0, 0.2e-3), Sampling(20e3, 1.0),
                Control(feedback, "PR", Kp_V_per_A=8.0, Kr=300.0, Hi_V_per_A=6.0))

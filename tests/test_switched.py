@@ -1,8 +1,8 @@
-"""The switched model (loopcheck.switched): ideal carrier-based PWM in the
+"""The switched model (loopcheck.timedomain.switched): ideal carrier-based PWM in the
 loop, integrated exactly between switching edges.
 
 * Its grid-current sidebands against the harmonic model of
-  loopcheck.harmonics (double-Fourier/Bessel expressions of D. G. Holmes and
+  loopcheck.harmonics.spectrum (double-Fourier/Bessel expressions of D. G. Holmes and
   T. A. Lipo, "Pulse Width Modulation for Power Converters", IEEE Press /
   Wiley, 2003, through the filter admittance). The two share no code for the
   modulator: here the PWM edges are found by comparing the references with
@@ -21,10 +21,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from loopcheck.harmonics import PwmSpec
-from loopcheck.model import Control, Design, Filter, Grid, Sampling
-from loopcheck.scenario import Event, Scenario
-from loopcheck.switched import sideband_amplitudes, sideband_check, simulate_switched
+from loopcheck.harmonics.spectrum import PwmSpec
+from loopcheck.engine.model import Control, Design, Filter, Grid, Sampling
+from loopcheck.timedomain.scenario import Event, Scenario
+from loopcheck.timedomain.switched import sideband_amplitudes, sideband_check, simulate_switched
 
 
 def design(fs=16e3):

@@ -1,5 +1,5 @@
 """The BLAS thread limit around loopcheck's small-matrix kernels
-(loopcheck.threads): it limits the BLAS inside and only inside the kernels,
+(loopcheck.engine.threads): it limits the BLAS inside and only inside the kernels,
 restores the user's setting, never touches the environment, and keeps the
 results. The thread counts are read back through threadpoolctl's
 threadpool_info (general-purpose reference library); the matrix
@@ -16,8 +16,8 @@ import pytest
 import scipy.linalg
 from threadpoolctl import threadpool_info, threadpool_limits
 
-import loopcheck.threads as lt
-from loopcheck.expm import expm_batched
+import loopcheck.engine.threads as lt
+from loopcheck.engine.expm import expm_batched
 
 
 def blas_threads():
@@ -65,7 +65,7 @@ def test_kernel_runs_limited_and_matches_scipy(monkeypatch):
 
 
 def test_import_does_not_load_threadpoolctl():
-    code = ("import sys, loopcheck.cli, loopcheck.threads, loopcheck.expm; "
+    code = ("import sys, loopcheck.cli.main, loopcheck.engine.threads, loopcheck.engine.expm; "
             "print('threadpoolctl' in sys.modules, 'OMP_NUM_THREADS' in __import__('os').environ)")
     env = {k: v for k, v in os.environ.items() if k not in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS")}
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, env=env).stdout
@@ -75,14 +75,14 @@ def test_import_does_not_load_threadpoolctl():
 @pytest.mark.parametrize("fn", ["simulate", "resonance_rate_check", "harmonic_check", "compare_damping",
                                 "analyse_loop", "spectral_radius", "expm_batched"])
 def test_batched_entry_points_are_limited(fn):
-    import loopcheck.analysis
-    import loopcheck.expm
-    import loopcheck.harmonics
-    import loopcheck.passive
-    import loopcheck.simulate
-    import loopcheck.verdict
+    import loopcheck.engine.analysis
+    import loopcheck.engine.expm
+    import loopcheck.harmonics.spectrum
+    import loopcheck.design.passive
+    import loopcheck.timedomain.simulate
+    import loopcheck.engine.verdict
 
-    mods = (loopcheck.simulate, loopcheck.harmonics, loopcheck.passive, loopcheck.analysis, loopcheck.verdict,
-            loopcheck.expm)
+    mods = (loopcheck.timedomain.simulate, loopcheck.harmonics.spectrum, loopcheck.design.passive, loopcheck.engine.analysis, loopcheck.engine.verdict,
+            loopcheck.engine.expm)
     f = next(getattr(m, fn) for m in mods if hasattr(m, fn))
-    assert getattr(f, "__wrapped__", None) is not None  # functools.wraps of loopcheck.threads.limited
+    assert getattr(f, "__wrapped__", None) is not None  # functools.wraps of loopcheck.engine.threads.limited

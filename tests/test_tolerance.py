@@ -10,20 +10,11 @@ import numpy as np
 import pytest
 import scipy.stats as st
 
-from loopcheck.casefile import CaseError
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
-from loopcheck.tolerance import (
-    ComponentTolerance,
-    ComponentValues,
-    ToleranceSpec,
-    clopper_pearson_interval,
-    corner_factors,
-    corner_values,
-    draw_units,
-    parse_tolerance_table,
-    wilson_interval,
-)
-from loopcheck.weakgrid import Targets, monte_carlo, stable_lg_intervals
+from loopcheck.io.casefile import CaseError
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.design.tolerance import ComponentTolerance, ComponentValues, ToleranceSpec, clopper_pearson_interval, corner_factors, corner_values, draw_units, wilson_interval
+from loopcheck.io.read_tolerance import parse_tolerance_table
+from loopcheck.design.weakgrid import Targets, monte_carlo, stable_lg_intervals
 
 WHERE = "cases/x.toml: [tolerance]"
 
@@ -184,7 +175,7 @@ def test_monte_carlo_with_tolerances_sees_the_spread():
     damping (Parker, McGrath and Holmes, IEEE Trans. Ind. Appl., vol. 50,
     no. 1, pp. 424-432, 2014, from memory). Each unit's verdict is
     re-checked with the engine's single-loop builder."""
-    from loopcheck.loop import build_loop
+    from loopcheck.engine.loop import build_loop
 
     d = _design(Hi=0.0)
     rng_ = (0.0, 0.5e-3)

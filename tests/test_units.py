@@ -11,7 +11,7 @@ import math
 
 import pytest
 
-from loopcheck.units import (
+from loopcheck.engine.units import (
     DIMENSIONS,
     UnitError,
     expected_text,

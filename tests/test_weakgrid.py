@@ -14,20 +14,13 @@ import pytest
 from scipy.optimize import brentq
 from scipy.signal import cont2discrete
 
-from loopcheck.analysis import analyse
-from loopcheck.casefile import CaseError
-from loopcheck.loop import build_loop
-from loopcheck.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
-from loopcheck.plant import lcl_state_space
-from loopcheck.weakgrid import (
-    Targets,
-    critical_crossing_lg,
-    evaluate_points,
-    parse_targets,
-    robustness_index,
-    stable_lg_intervals,
-    sweep_grid,
-)
+from loopcheck.engine.analysis import analyse
+from loopcheck.io.casefile import CaseError
+from loopcheck.engine.loop import build_loop
+from loopcheck.engine.model import Control, Design, Filter, Grid, PassiveDamping, Sampling
+from loopcheck.engine.plant import lcl_state_space
+from loopcheck.design.weakgrid import Targets, critical_crossing_lg, evaluate_points, robustness_index, stable_lg_intervals, sweep_grid
+from loopcheck.io.read_targets import parse_targets
 
 
 def _design(L1=1.2e-3, C=10e-6, L2=0.5e-3, fs=20e3, delay=1.0, feedback="grid", kind="PR", Kp=2.5, Kr=200.0,
@@ -265,7 +258,7 @@ def _margin_designs(n=10, seed=5):
 
 
 def test_batched_margins_match_analyse():
-    """Vectorised margins against loopcheck.analysis.analyse (the
+    """Vectorised margins against loopcheck.engine.analysis.analyse (the
     single-design reference, itself tested against python-control and
     scipy) on random stable designs with passive damping variants."""
     designs = _margin_designs()
@@ -343,7 +336,7 @@ def test_lossless_integrator_at_z_equal_one_is_no_gain_limit_in_sweeps():
     # inside for every small controller gain (elementary root locus; common
     # practice), so the gain may fall to 0. The batched margins of the
     # weak-grid sweep and of the map must say so, like analyse() does.
-    from loopcheck import maps
+    from loopcheck.design import maps
 
     L1, C = 0.007498942093324558, 2.955203238012614e-07
     d = Design(

@@ -1,0 +1,1 @@
+"""The typer command line: one thin module per command, heavy imports lazy."""

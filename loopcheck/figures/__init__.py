@@ -1,0 +1,1 @@
+"""Every figure and the HTML report (the only layer that imports matplotlib)."""

@@ -1,0 +1,1 @@
+"""PWM sideband spectra and the harmonic current limits they are checked against."""

@@ -1,0 +1,1 @@
+"""Time-domain proof: the sampled-data simulation, the switched model and scenarios."""
